@@ -1,0 +1,238 @@
+"""The ``tbminv`` command line: parses arguments and calls the library (nothing else).
+
+Commands (contract, see the shared design §3.5)::
+
+    tbminv simulate --layout L.toml --ground G.toml --faces START:STOP:STEP --out readings.csv
+                    [--model axisym|3d|section] [--noise-rel R] [--noise-abs V] [--seed N]
+    tbminv check READINGS --layout L.toml --out DIR
+    tbminv invert READINGS --layout L.toml --store STORE.nc [--settings S.toml] [--cold]
+                    [--scheduler ADDRESS]
+    tbminv reach --layout L.toml --out DIR [--contrast C] [--noise-rel R] [--noise-abs V]
+                    [--sweep SWEEP.toml] [--scheduler ADDRESS]
+    tbminv report STORE.nc --out DIR
+    tbminv demo --out DIR
+    tbminv env                      # environment report for bug reports
+
+Exit codes: 0 success, 1 the job ran but found nothing usable, 2 bad input or a command whose
+module is not available in this version.
+"""
+
+from __future__ import annotations
+
+import argparse
+import importlib
+import logging
+import sys
+from collections.abc import Callable, Sequence
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+_LOG = logging.getLogger("tbminv.cli")
+
+
+class CLIError(Exception):
+    """A command-line problem reported to the user without a traceback (exit code 2)."""
+
+
+def parse_faces(text: str) -> np.ndarray:
+    """Parse ``START:STOP:STEP`` face chainages, m, STOP included when on the step grid.
+
+    Also accepts a single chainage or a comma-separated list.
+
+    Raises
+    ------
+    CLIError
+        If the text is not of that form or the step does not move from START towards STOP.
+    """
+    try:
+        if ":" in text:
+            parts = [float(p) for p in text.split(":")]
+            if len(parts) != 3:
+                raise ValueError
+            start, stop, step = parts
+            if step == 0 or (stop - start) * step < 0:
+                raise CLIError(f"--faces {text}: STEP must move from START towards STOP")
+            n = int(np.floor((stop - start) / step + 1e-9)) + 1
+            return start + step * np.arange(n)
+        return np.array([float(p) for p in text.split(",")])
+    except ValueError:
+        raise CLIError(f"--faces {text!r}: expected START:STOP:STEP in metres "
+                       "(e.g. 1200:1236:1.5) or a comma-separated list") from None
+
+
+def _module(name: str, command: str) -> Any:
+    try:
+        return importlib.import_module(f"tbminv.{name}")
+    except ModuleNotFoundError as exc:
+        if exc.name == f"tbminv.{name}":
+            raise CLIError(f"tbminv {command}: not available in this version (module "
+                           f"tbminv.{name} is not built yet)") from None
+        raise
+
+
+def _load_layout(path: str) -> Any:
+    from tbminv.layout import load_layout
+
+    return load_layout(path)
+
+
+def cmd_simulate(args: argparse.Namespace) -> int:
+    """Run ``tbminv simulate``."""
+    from tbminv.ground import load_scenario
+
+    sim = _module("simulate", "simulate")
+    layout = _load_layout(args.layout)
+    scenario = load_scenario(args.ground)
+    faces = parse_faces(args.faces)
+    df = sim.simulate_drive(layout, scenario, faces, model=args.model,
+                            noise_rel=args.noise_rel, noise_abs_v=args.noise_abs, seed=args.seed)
+    out = sim.write_readings(df, args.out)
+    print(f"simulated {len(faces)} advances, {len(df)} readings ({args.model} model) -> {out}")
+    return 0
+
+
+def cmd_check(args: argparse.Namespace) -> int:
+    """Run ``tbminv check``."""
+    qc = _module("qc", "check")
+    layout = _load_layout(args.layout)
+    result = qc.run_check(args.readings, layout, args.out)
+    for line in result.describe():
+        print(line)
+    return 0 if result.usable else 1
+
+
+def cmd_invert(args: argparse.Namespace) -> int:
+    """Run ``tbminv invert``."""
+    inv = _module("invert", "invert")
+    return int(inv.run_invert_cli(args))
+
+
+def cmd_reach(args: argparse.Namespace) -> int:
+    """Run ``tbminv reach``."""
+    reach = _module("reach", "reach")
+    return int(reach.run_reach_cli(args))
+
+
+def cmd_report(args: argparse.Namespace) -> int:
+    """Run ``tbminv report``."""
+    report = _module("report", "report")
+    return int(report.run_report_cli(args))
+
+
+def cmd_demo(args: argparse.Namespace) -> int:
+    """Run ``tbminv demo``: the whole chain on the bundled demo drive."""
+    demo = _module("demo", "demo")
+    return int(demo.run_demo(Path(args.out)))
+
+
+def cmd_env(args: argparse.Namespace) -> int:
+    """Print the environment report."""
+    from tbminv import environment_report
+
+    print(environment_report())
+    return 0
+
+
+def build_parser() -> argparse.ArgumentParser:
+    """The argument parser of the ``tbminv`` command."""
+    p = argparse.ArgumentParser(
+        prog="tbminv",
+        description="Electrical-resistivity look-ahead for tunnel boring machines. "
+                    "An interpretation aid: probing, site investigation and licensed engineers "
+                    "decide; local codes rule.")
+    p.add_argument("-v", "--verbose", action="count", default=0,
+                   help="more log output (-v info, -vv debug)")
+    sub = p.add_subparsers(dest="command", required=True)
+
+    s = sub.add_parser("simulate", help="synthetic readings log of a drive")
+    s.add_argument("--layout", required=True, help="layout file (TOML)")
+    s.add_argument("--ground", required=True, help="ground scenario file (TOML)")
+    s.add_argument("--faces", required=True, help="face chainages START:STOP:STEP, m (inclusive)")
+    s.add_argument("--out", required=True, help="readings log to write (CSV or .parquet)")
+    s.add_argument("--model", default="3d", help="forward model: axisym, 3d or section")
+    s.add_argument("--noise-rel", type=float, default=0.0, help="relative noise (fraction)")
+    s.add_argument("--noise-abs", type=float, default=0.0, help="absolute voltage noise, V")
+    s.add_argument("--seed", type=int, default=None, help="random seed for the noise")
+    s.set_defaults(func=cmd_simulate)
+
+    c = sub.add_parser("check", help="screen a readings log: quarantine, QC, error model")
+    c.add_argument("readings", help="readings log (CSV or Parquet)")
+    c.add_argument("--layout", required=True, help="layout file (TOML)")
+    c.add_argument("--out", required=True, help="output folder")
+    c.set_defaults(func=cmd_check)
+
+    i = sub.add_parser("invert", help="invert every advance into the moving section store")
+    i.add_argument("readings", help="readings log (CSV or Parquet)")
+    i.add_argument("--layout", required=True, help="layout file (TOML)")
+    i.add_argument("--store", required=True, help="section store (NetCDF) to create or append")
+    i.add_argument("--settings", default=None, help="settings file (TOML)")
+    i.add_argument("--cold", action="store_true", help="cold-start every advance")
+    i.add_argument("--scheduler", default=None, help="dask scheduler address")
+    i.set_defaults(func=cmd_invert)
+
+    r = sub.add_parser("reach", help="how far ahead a layout sees a contrast")
+    r.add_argument("--layout", required=True, help="layout file (TOML)")
+    r.add_argument("--out", required=True, help="output folder")
+    r.add_argument("--contrast", type=float, default=10.0,
+                   help="resistivity beyond / around (default 10)")
+    r.add_argument("--noise-rel", type=float, default=0.02, help="relative noise (fraction)")
+    r.add_argument("--noise-abs", type=float, default=0.0, help="absolute noise, V")
+    r.add_argument("--sweep", default=None, help="sweep file (TOML)")
+    r.add_argument("--scheduler", default=None, help="dask scheduler address")
+    r.set_defaults(func=cmd_reach)
+
+    rp = sub.add_parser("report", help="shift report from a section store")
+    rp.add_argument("store", help="section store (NetCDF)")
+    rp.add_argument("--out", required=True, help="output folder")
+    rp.set_defaults(func=cmd_report)
+
+    d = sub.add_parser("demo", help="run the whole chain on the bundled demo drive")
+    d.add_argument("--out", required=True, help="output folder")
+    d.set_defaults(func=cmd_demo)
+
+    e = sub.add_parser("env", help="environment report for bug reports")
+    e.set_defaults(func=cmd_env)
+    return p
+
+
+def main(argv: Sequence[str] | None = None) -> int:
+    """Entry point of the ``tbminv`` console script.
+
+    Parameters
+    ----------
+    argv : sequence of str, optional
+        Arguments (default: ``sys.argv[1:]``).
+
+    Returns
+    -------
+    int
+        Exit code.
+    """
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    level = (logging.WARNING, logging.INFO, logging.DEBUG)[min(args.verbose, 2)]
+    logging.basicConfig(level=level, format="%(levelname)s %(name)s: %(message)s")
+    logging.getLogger("tbminv").setLevel(level)
+    func: Callable[[argparse.Namespace], int] = args.func
+    from tbminv.ground import ScenarioError
+    from tbminv.layout import LayoutError
+
+    expected: tuple[type[BaseException], ...] = (CLIError, LayoutError, ScenarioError,
+                                                 FileNotFoundError)
+    try:
+        from tbminv.readings import ReadingsError
+
+        expected = (*expected, ReadingsError)
+    except ImportError:
+        pass
+    try:
+        return func(args)
+    except expected as exc:
+        print(f"tbminv {args.command}: error: {exc}", file=sys.stderr)
+        return 2
+
+
+if __name__ == "__main__":
+    raise SystemExit(main())
