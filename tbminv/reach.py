@@ -1,0 +1,500 @@
+"""Look-ahead reach: how far ahead a layout sees a given change at a given noise level.
+
+For a layout, a planar contact square to the axis (or a sphere on the axis) is moved from far ahead
+of the face towards it; at each distance the forward model gives every quadrupole's transfer
+resistance ``R(d)`` against the homogeneous ``R0``. A quadrupole *sees* the change at distance ``d``
+when ``|R(d)/R0 - 1| >= k sigma(R0)/|R0|`` with the error model ``sigma = a + b|R|``
+(``a = noise_abs_v / current_a`` in ohm, ``b = noise_rel``; the envelope of Slater et al. 2000,
+J. Appl. Geophys. 44:85-102). Its detectable distance is the largest such ``d`` on the grid (0 where
+never), and the layout's reach is the largest detectable distance over usable quadrupoles.
+
+Sweeps over diameter, contrast, noise and cover run as independent tasks on dask.distributed
+(:func:`run_sweep`): tasks carry plain dictionaries and rebuild layouts and meshes in the worker.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import itertools
+import logging
+import os
+import time
+import tomllib
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import xarray as xr
+
+from tbminv.ground import Contact, Scenario, Sphere
+from tbminv.layout import Layout
+
+_LOG = logging.getLogger("tbminv.reach")
+
+SWEEP_PARAMETERS = ("diameter_m", "contrast", "noise_rel", "noise_abs_v", "cover_m",
+                    "shield_length_m")
+
+
+@dataclass(frozen=True)
+class ReachSettings:
+    """Settings of a reach study (SI units).
+
+    Attributes
+    ----------
+    contrast : float
+        Resistivity beyond the contact / resistivity around the machine.
+    background_ohmm : float
+        Resistivity around the machine, ohm-m.
+    noise_rel : float
+        Relative error b of the envelope (fraction).
+    noise_abs_v : float
+        Absolute voltage error, V (``a = noise_abs_v / current_a``).
+    current_a : float
+        Injected current, A.
+    k : float
+        Detection threshold in standard deviations.
+    distances_m : tuple of float
+        Distances ahead of the face, m (default: 0.25 D … 12 D, 33 steps, geometric).
+    target : str
+        ``contact`` (plane square to the axis) or ``sphere`` (on the axis).
+    sphere_radius_m : float
+        Radius of the sphere target, m (its near surface is at the distance).
+    model : str
+        Forward model name (:mod:`tbminv.models`).
+    face_chainage_m : float or None
+        Face chainage for the study; default puts it 5.5 m ahead of the shield tail past the last
+        electrode fixed in the ground (or 0 if there are none).
+    """
+
+    contrast: float = 10.0
+    background_ohmm: float = 100.0
+    noise_rel: float = 0.02
+    noise_abs_v: float = 0.0
+    current_a: float = 1.0
+    k: float = 3.0
+    distances_m: tuple[float, ...] = ()
+    target: str = "contact"
+    sphere_radius_m: float = 2.0
+    model: str = "axisym"
+    face_chainage_m: float | None = None
+    model_options: Mapping[str, Any] = field(default_factory=dict)
+
+    def distances(self, diameter_m: float) -> np.ndarray:
+        """Distances ahead, m."""
+        if self.distances_m:
+            return np.sort(np.asarray(self.distances_m, float))
+        return diameter_m * np.geomspace(0.25, 12.0, 33)
+
+
+def default_face_chainage(layout: Layout) -> float:
+    """A face chainage that keeps ground-fixed electrodes behind the shield tail, m."""
+    fixed = [e.chainage_m for e in layout.electrodes if e.fixed_in_ground and e.kind == "wall"]
+    if not fixed:
+        return 0.0
+    return max(fixed) + layout.machine.shield_length_m + 5.5
+
+
+def target_scenario(settings: ReachSettings, face_chainage_m: float,
+                    distance_m: float) -> Scenario:
+    """Ground with the target ``distance_m`` ahead of the face."""
+    bg = settings.background_ohmm
+    beyond = bg * settings.contrast
+    if settings.target == "contact":
+        return Scenario(background_resistivity_ohmm=bg,
+                        contacts=(Contact(chainage_m=face_chainage_m + distance_m,
+                                          resistivity_ohmm=beyond),))
+    if settings.target == "sphere":
+        r = settings.sphere_radius_m
+        return Scenario(background_resistivity_ohmm=bg,
+                        spheres=(Sphere(chainage_m=face_chainage_m + distance_m + r,
+                                        radius_m=r, resistivity_ohmm=beyond),))
+    raise ValueError(f"reach target {settings.target!r}: expected 'contact' or 'sphere'")
+
+
+def response_vs_distance(layout: Layout, settings: ReachSettings,
+                         model: Any | None = None) -> xr.Dataset:
+    """Relative response of every quadrupole as the target approaches the face.
+
+    Parameters
+    ----------
+    layout : Layout
+    settings : ReachSettings
+    model : ForwardModel, optional
+        A model already built for ``layout`` (default: ``make_model(settings.model, layout)``).
+
+    Returns
+    -------
+    xarray.Dataset
+        ``relative_response`` (measurement, distance_ahead) = R(d)/R0 - 1,
+        ``delta_voltage_v`` for the settings' current, ``r0_ohm`` (measurement).
+    """
+    from tbminv.models import make_model
+
+    if model is None:
+        model = make_model(settings.model, layout, **dict(settings.model_options))
+    face = settings.face_chainage_m
+    if face is None:
+        face = default_face_chainage(layout)
+    d = settings.distances(layout.machine.diameter_m)
+    t0 = time.perf_counter()
+    r0 = np.asarray(model.response(Scenario.homogeneous(settings.background_ohmm), face), float)
+    rel = np.empty((r0.size, d.size))
+    for j, dist in enumerate(d):
+        r = np.asarray(model.response(target_scenario(settings, face, float(dist)), face), float)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            rel[:, j] = r / r0 - 1.0
+    _LOG.info("response vs distance: %d distances x %d quadrupoles in %.1f s", d.size, r0.size,
+              time.perf_counter() - t0)
+    return _dataset(layout, settings, d, r0, rel, face)
+
+
+def _dataset(layout: Layout, settings: ReachSettings, d: np.ndarray, r0: np.ndarray,
+             rel: np.ndarray, face: float) -> xr.Dataset:
+    q = layout.measurements
+    coords = {
+        "measurement": np.arange(len(q)),
+        "distance_ahead": ("distance_ahead", d, {"units": "m",
+                                                 "long_name": "distance of the target ahead "
+                                                              "of the cutterhead face"}),
+        "a": ("measurement", [m.a for m in q]),
+        "b": ("measurement", [m.b or "" for m in q]),
+        "m": ("measurement", [m.m for m in q]),
+        "n": ("measurement", [m.n or "" for m in q]),
+    }
+    ds = xr.Dataset(
+        {
+            "relative_response": (("measurement", "distance_ahead"), rel,
+                                  {"units": "1", "long_name": "relative change of transfer "
+                                                              "resistance R(d)/R0 - 1"}),
+            "delta_voltage_v": (("measurement", "distance_ahead"),
+                                rel * r0[:, None] * settings.current_a,
+                                {"units": "V", "long_name": "change of measured voltage for "
+                                                           "the study current"}),
+            "r0_ohm": ("measurement", r0, {"units": "ohm",
+                                           "long_name": "transfer resistance, homogeneous "
+                                                        "ground"}),
+        },
+        coords=coords,
+    )
+    ds.attrs.update(_settings_attrs(settings))
+    ds.attrs["face_chainage_m"] = face
+    ds.attrs["diameter_m"] = layout.machine.diameter_m
+    return ds
+
+
+def _settings_attrs(settings: ReachSettings) -> dict[str, Any]:
+    out: dict[str, Any] = {}
+    for f in dataclasses.fields(settings):
+        v = getattr(settings, f.name)
+        if f.name == "model_options":
+            out["model_options"] = repr(dict(v))
+        elif f.name == "distances_m":
+            continue
+        elif v is None:
+            continue
+        else:
+            out[f.name] = v
+    return out
+
+
+def detectability(ds: xr.Dataset, *, noise_rel: float, noise_abs_v: float = 0.0,
+                  current_a: float = 1.0, k: float = 3.0) -> xr.Dataset:
+    """Add detectable distance per quadrupole and the layout's reach to a response dataset.
+
+    Returns
+    -------
+    xarray.Dataset
+        The input plus ``relative_error`` (measurement), ``detected`` (measurement,
+        distance_ahead), ``detectable_ahead_m`` (measurement; 0 where never), ``usable``
+        (measurement; relative error below 1) and the scalar ``reach_m``.
+    """
+    r0 = np.abs(ds["r0_ohm"].values)
+    a_ohm = noise_abs_v / current_a
+    with np.errstate(divide="ignore", invalid="ignore"):
+        rel_err = (a_ohm + noise_rel * r0) / r0
+    rel_err = np.where(np.isfinite(rel_err), rel_err, np.inf)
+    resp = np.abs(ds["relative_response"].values)
+    detected = resp >= k * rel_err[:, None]
+    detected &= np.isfinite(resp)
+    d = ds["distance_ahead"].values
+    det = np.where(detected, d[None, :], 0.0).max(axis=1)
+    usable = rel_err < 1.0
+    reach = float(det[usable].max()) if usable.any() else 0.0
+    out = ds.copy()
+    out["relative_error"] = ("measurement", rel_err,
+                             {"units": "1", "long_name": "relative standard error a/|R0| + b"})
+    out["detected"] = (("measurement", "distance_ahead"), detected,
+                       {"long_name": f"|dR/R| >= {k:g} sigma/|R|"})
+    out["detectable_ahead_m"] = ("measurement", det,
+                                 {"units": "m", "long_name": "largest distance ahead at which "
+                                                             "the change is detectable"})
+    out["usable"] = ("measurement", usable, {"long_name": "relative error below 100 %"})
+    out["reach_m"] = ((), reach, {"units": "m", "long_name": "look-ahead reach of the layout"})
+    out.attrs.update(noise_rel=noise_rel, noise_abs_v=noise_abs_v, current_a=current_a, k=k)
+    return out
+
+
+def best_measurements(ds: xr.Dataset, n: int = 5) -> list[dict[str, Any]]:
+    """The ``n`` quadrupoles with the largest detectable distance."""
+    det = ds["detectable_ahead_m"].values
+    order = np.argsort(-det, kind="stable")[:n]
+    return [{"measurement": int(i), "a": str(ds.a.values[i]), "b": str(ds.b.values[i]),
+             "m": str(ds.m.values[i]), "n": str(ds.n.values[i]),
+             "detectable_ahead_m": float(det[i])} for i in order]
+
+
+def reach_study(layout: Layout, settings: ReachSettings, model: Any | None = None) -> xr.Dataset:
+    """Response vs distance and detectability for one layout (see the module docstring)."""
+    ds = response_vs_distance(layout, settings, model)
+    return detectability(ds, noise_rel=settings.noise_rel, noise_abs_v=settings.noise_abs_v,
+                         current_a=settings.current_a, k=settings.k)
+
+
+# ----------------------------------------------------------------------------- sweeps
+def scale_layout(layout: Layout, diameter_m: float, *, length: str = "fixed") -> Layout:
+    """The layout for another machine diameter.
+
+    Radial positions scale with the diameter (shield and wall electrodes keep their offset from
+    the skin). With ``length = "proportional"`` the shield length and every axial distance behind
+    the face scale too; with ``"fixed"`` they stay.
+    """
+    if length not in ("fixed", "proportional"):
+        raise ValueError(f"length = {length!r}: expected 'fixed' or 'proportional'")
+    s = diameter_m / layout.machine.diameter_m
+    r_old = layout.machine.radius_m
+    r_new = 0.5 * diameter_m
+    ax = s if length == "proportional" else 1.0
+    face = default_face_chainage(layout)
+    machine = dataclasses.replace(layout.machine, diameter_m=diameter_m,
+                                  shield_length_m=layout.machine.shield_length_m * ax,
+                                  cutterhead_thickness_m=layout.machine.cutterhead_thickness_m
+                                  * ax)
+    els = []
+    for e in layout.electrodes:
+        if e.kind == "cutterhead":
+            els.append(dataclasses.replace(e, radius_m=e.radius_m * s))
+        elif e.kind == "shield":
+            els.append(dataclasses.replace(e, radius_m=r_new + (e.radius_m - r_old),
+                                           axial_m=e.axial_m * ax))
+        elif e.kind == "wall":
+            els.append(dataclasses.replace(e, radius_m=r_new + (e.radius_m - r_old),
+                                           chainage_m=face + (e.chainage_m - face) * ax))
+        else:
+            els.append(e)
+    return dataclasses.replace(layout, machine=machine, electrodes=tuple(els))
+
+
+def _task(config: dict[str, Any]) -> dict[str, Any]:
+    """One sweep case, from plain data (runs in a dask worker or serially)."""
+    os.environ.setdefault("TBMINV_THREADS", "1")
+    layout = Layout.from_dict(config["layout"], source="sweep")
+    case = config["case"]
+    if "diameter_m" in case:
+        layout = scale_layout(layout, float(case["diameter_m"]), length=config["length"])
+    if "shield_length_m" in case:
+        layout = dataclasses.replace(layout, machine=dataclasses.replace(
+            layout.machine, shield_length_m=float(case["shield_length_m"])))
+    if "cover_m" in case:
+        layout = dataclasses.replace(layout, tunnel=dataclasses.replace(
+            layout.tunnel, cover_m=float(case["cover_m"])))
+    base = ReachSettings(**config["settings"])
+    over = {k: float(v) for k, v in case.items() if k in ("contrast", "noise_rel", "noise_abs_v")}
+    settings = dataclasses.replace(base, **over)
+    if config.get("distances_in_diameters"):
+        settings = dataclasses.replace(settings, distances_m=tuple(
+            float(x) * layout.machine.diameter_m for x in config["distances_in_diameters"]))
+    ds = reach_study(layout, settings)
+    return {"case": case, "relative_response": ds["relative_response"].values,
+            "detectable_ahead_m": ds["detectable_ahead_m"].values,
+            "reach_m": float(ds["reach_m"]), "distance_ahead": ds["distance_ahead"].values}
+
+
+def run_sweep(layout: Layout, sweep: Mapping[str, Sequence[float]], settings: ReachSettings, *,
+              length: str = "fixed", distances_in_diameters: Sequence[float] | None = None,
+              client: Any | None = None, scheduler: str | None = None, serial: bool = False,
+              progress: bool = True) -> xr.Dataset:
+    """Reach over the product of swept parameters, as independent dask tasks.
+
+    Parameters
+    ----------
+    layout : Layout
+        Base layout.
+    sweep : mapping name -> values
+        Swept parameters from :data:`SWEEP_PARAMETERS`.
+    settings : ReachSettings
+        Base settings (swept values override).
+    length : {"fixed", "proportional"}
+        How the machine length follows the diameter.
+    distances_in_diameters : sequence of float, optional
+        Distance grid in units of D (so cases of different D share a grid in D).
+    client : dask.distributed.Client, optional
+        Existing client; else ``scheduler`` address; else a LocalCluster sized to the machine.
+    serial : bool
+        Run in this process (no dask).
+
+    Returns
+    -------
+    xarray.Dataset
+        ``reach_m`` over the swept dims, ``detectable_ahead_m`` (swept dims, measurement) and
+        ``relative_response`` (swept dims, measurement, step).
+    """
+    for k in sweep:
+        if k not in SWEEP_PARAMETERS:
+            raise ValueError(f"sweep parameter {k!r}: expected one of "
+                             f"{', '.join(SWEEP_PARAMETERS)}")
+    names = list(sweep)
+    values = [list(map(float, sweep[k])) for k in names]
+    cases = [dict(zip(names, combo)) for combo in itertools.product(*values)]
+    base = {f.name: getattr(settings, f.name) for f in dataclasses.fields(settings)}
+    base["model_options"] = dict(base["model_options"])
+    base["distances_m"] = tuple(base["distances_m"])
+    configs = [{"layout": layout.to_dict(), "case": c, "settings": base, "length": length,
+                "distances_in_diameters": list(distances_in_diameters or [])} for c in cases]
+    t0 = time.perf_counter()
+    results = _run_tasks(configs, client=client, scheduler=scheduler, serial=serial,
+                         progress=progress)
+    _LOG.info("sweep of %d cases in %.1f s", len(cases), time.perf_counter() - t0)
+    shape = [len(v) for v in values]
+    nq = len(layout.measurements)
+    nd = results[0]["distance_ahead"].size
+    reach = np.empty(len(cases))
+    det = np.empty((len(cases), nq))
+    rel = np.empty((len(cases), nq, nd))
+    dist = np.empty((len(cases), nd))
+    for i, r in enumerate(results):
+        reach[i], det[i], rel[i], dist[i] = (r["reach_m"], r["detectable_ahead_m"],
+                                             r["relative_response"], r["distance_ahead"])
+    coords = {k: (k, np.asarray(v), {"units": _unit(k)}) for k, v in zip(names, values)}
+    coords["measurement"] = np.arange(nq)
+    ds = xr.Dataset(
+        {
+            "reach_m": (names, reach.reshape(shape), {"units": "m",
+                                                      "long_name": "look-ahead reach"}),
+            "detectable_ahead_m": ((*names, "measurement"), det.reshape(*shape, nq),
+                                   {"units": "m"}),
+            "relative_response": ((*names, "measurement", "step"),
+                                  rel.reshape(*shape, nq, nd), {"units": "1"}),
+            "distance_ahead": ((*names, "step"), dist.reshape(*shape, nd), {"units": "m"}),
+        },
+        coords=coords,
+    )
+    ds.attrs.update(_settings_attrs(settings))
+    ds.attrs["length_scaling"] = length
+    ds.attrs["wall_time_s"] = time.perf_counter() - t0
+    return ds
+
+
+def _unit(name: str) -> str:
+    return {"contrast": "1", "noise_rel": "1", "noise_abs_v": "V"}.get(name, "m")
+
+
+def _run_tasks(configs: list[dict[str, Any]], *, client: Any | None, scheduler: str | None,
+               serial: bool, progress: bool) -> list[dict[str, Any]]:
+    from tqdm.auto import tqdm
+
+    if serial:
+        return [_task(c) for c in tqdm(configs, disable=not progress, desc="reach sweep")]
+    from dask.distributed import Client, LocalCluster, as_completed
+
+    own: list[Any] = []
+    if client is None:
+        if scheduler:
+            client = Client(scheduler)
+        else:
+            n = max(1, os.cpu_count() or 1)
+            cluster = LocalCluster(n_workers=n, threads_per_worker=1, processes=True,
+                                   dashboard_address=None,
+                                   env={"TBMINV_THREADS": "1", "OMP_NUM_THREADS": "1"})
+            client = Client(cluster)
+            own = [client, cluster]
+        if scheduler:
+            own = [client]
+    try:
+        futures = client.map(_task, configs, pure=False)
+        index = {f.key: i for i, f in enumerate(futures)}
+        out: list[Any] = [None] * len(configs)
+        for fut in tqdm(as_completed(futures), total=len(futures), disable=not progress,
+                        desc="reach sweep"):
+            out[index[fut.key]] = fut.result()
+        return out
+    finally:
+        for obj in own:
+            obj.close()
+
+
+# ----------------------------------------------------------------------------- files, CLI
+def load_sweep(path: str | Path) -> tuple[dict[str, list[float]], dict[str, Any]]:
+    """Read a sweep file (TOML): ``[sweep]`` name = [values]; optional ``[options]``.
+
+    ``[options]`` may hold ``length`` ("fixed" / "proportional"), ``distances_in_diameters``,
+    ``k``, ``model``, ``target``, ``background_ohmm``.
+    """
+    p = Path(path)
+    try:
+        data = tomllib.loads(p.read_text(encoding="utf-8-sig"))
+    except (OSError, UnicodeDecodeError, tomllib.TOMLDecodeError) as exc:
+        raise ValueError(f"{p}: cannot read sweep file ({exc})") from None
+    sweep = data.get("sweep")
+    if not isinstance(sweep, dict) or not sweep:
+        raise ValueError(f"{p}: [sweep] table missing; expected e.g. diameter_m = [4.0, 6.0]")
+    out: dict[str, list[float]] = {}
+    for k, v in sweep.items():
+        if k not in SWEEP_PARAMETERS:
+            raise ValueError(f"{p}: [sweep] {k}: unknown parameter; expected one of "
+                             f"{', '.join(SWEEP_PARAMETERS)}")
+        if not isinstance(v, list) or not v or not all(
+                isinstance(x, (int, float)) and not isinstance(x, bool) for x in v):
+            raise ValueError(f"{p}: [sweep] {k} = {v!r}: expected a list of numbers")
+        out[k] = [float(x) for x in v]
+    return out, dict(data.get("options", {}))
+
+
+def run_reach_cli(args: Any) -> int:
+    """``tbminv reach``: one layout (``DIR/reach.nc`` + figures) or a sweep (``DIR/sweep.nc``)."""
+    from tbminv.cache import atomic_path
+    from tbminv.figures import save_figure
+    from tbminv.layout import load_layout
+    from tbminv.reachplot import plot_reach_map, plot_response_vs_distance
+
+    layout = load_layout(args.layout)
+    out = Path(args.out)
+    out.mkdir(parents=True, exist_ok=True)
+    settings = ReachSettings(contrast=args.contrast, noise_rel=args.noise_rel,
+                             noise_abs_v=args.noise_abs,
+                             model=getattr(args, "model", None) or "axisym")
+    if args.sweep:
+        sweep, opts = load_sweep(args.sweep)
+        settings = dataclasses.replace(settings, **{k: opts[k] for k in
+                                                    ("k", "model", "target", "background_ohmm")
+                                                    if k in opts})
+        ds = run_sweep(layout, sweep, settings, length=opts.get("length", "fixed"),
+                       distances_in_diameters=opts.get("distances_in_diameters"),
+                       scheduler=args.scheduler)
+        path = out / "sweep.nc"
+        with atomic_path(path) as tmp:
+            ds.to_netcdf(tmp, engine="h5netcdf")
+        print(f"sweep of {int(np.prod([ds.sizes[d] for d in ds['reach_m'].dims]))} cases "
+              f"-> {path}")
+        for p in save_figure(plot_reach_map(ds), out / "reach_map"):
+            print(f"figure -> {p}")
+        return 0
+    ds = reach_study(layout, settings)
+    path = out / "reach.nc"
+    with atomic_path(path) as tmp:
+        ds.to_netcdf(tmp, engine="h5netcdf")
+    print(f"reach of {layout.name or args.layout}: {float(ds['reach_m']):.1f} m ahead "
+          f"({float(ds['reach_m']) / layout.machine.diameter_m:.1f} D) for contrast "
+          f"{settings.contrast:g} at {100 * settings.noise_rel:g} % noise, k = {settings.k:g}")
+    for b in best_measurements(ds, 5):
+        print(f"  {b['a']} {b['b']} {b['m']} {b['n']}: {b['detectable_ahead_m']:.1f} m")
+    print(f"dataset -> {path}")
+    for p in save_figure(plot_response_vs_distance(ds), out / "reach"):
+        print(f"figure -> {p}")
+    return 0
+
+
+__all__ = ["ReachSettings", "response_vs_distance", "detectability", "reach_study",
+           "best_measurements", "run_sweep", "scale_layout", "load_sweep", "target_scenario",
+           "default_face_chainage", "run_reach_cli", "SWEEP_PARAMETERS"]
