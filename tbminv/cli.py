@@ -4,7 +4,7 @@ Commands (contract, see the shared design §3.5)::
 
     tbminv simulate --layout L.toml --ground G.toml --faces START:STOP:STEP --out readings.csv
                     [--model axisym|3d|section] [--noise-rel R] [--noise-abs V] [--seed N]
-    tbminv check READINGS --layout L.toml --out DIR
+    tbminv check READINGS --layout L.toml --out DIR [--settings S.toml]
     tbminv invert READINGS --layout L.toml --store STORE.nc [--settings S.toml] [--cold]
                     [--scheduler ADDRESS]
     tbminv reach --layout L.toml --out DIR [--contrast C] [--noise-rel R] [--noise-abs V]
@@ -97,7 +97,8 @@ def cmd_check(args: argparse.Namespace) -> int:
     """Run ``tbminv check``."""
     qc = _module("qc", "check")
     layout = _load_layout(args.layout)
-    result = qc.run_check(args.readings, layout, args.out)
+    settings = qc.QCSettings.from_toml(args.settings) if args.settings else None
+    result = qc.run_check(args.readings, layout, args.out, settings)
     for line in result.describe():
         print(line)
     return 0 if result.usable else 1
@@ -161,6 +162,8 @@ def build_parser() -> argparse.ArgumentParser:
     c.add_argument("readings", help="readings log (CSV or Parquet)")
     c.add_argument("--layout", required=True, help="layout file (TOML)")
     c.add_argument("--out", required=True, help="output folder")
+    c.add_argument("--settings", default=None,
+                   help="settings file (TOML) with a [qc] table (thresholds, fallback error)")
     c.set_defaults(func=cmd_check)
 
     i = sub.add_parser("invert", help="invert every advance into the moving section store")
@@ -222,9 +225,10 @@ def main(argv: Sequence[str] | None = None) -> int:
     expected: tuple[type[BaseException], ...] = (CLIError, LayoutError, ScenarioError,
                                                  FileNotFoundError)
     try:
+        from tbminv.qc import QCError
         from tbminv.readings import ReadingsError
 
-        expected = (*expected, ReadingsError)
+        expected = (*expected, ReadingsError, QCError)
     except ImportError:
         pass
     try:

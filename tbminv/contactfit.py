@@ -14,7 +14,9 @@ profile-likelihood interval ``{d : chi2(d) <= chi2_min + delta}`` (delta = 3.84 
 one parameter; scaled by the reduced chi-squared of the best fit when the fit is poor). The
 evidence against "no contact within reach" is the likelihood-ratio statistic against the
 homogeneous model (c = 1), with its chi-squared p-value for two extra parameters (Wilks'
-theorem; an approximation near the edges of the grid).
+theorem; an approximation near the edges of the grid), and the posterior weight of the
+homogeneous model with equal prior weights in the BIC approximation (Schwarz 1978, Ann. Stat.
+6(2):461-464), ``p_no_contact = 1 / (1 + exp((BIC0 - BIC1) / 2))``.
 
 Successive advances combine: a real contact stays at one chainage X while the face approaches,
 so ``chi2(c, X) = sum_k chi2_k(c, X - face_k)`` over a window of advances, which breaks the
@@ -193,6 +195,7 @@ class ContactEstimate:
     chi2: float
     chi2_homogeneous: float
     p_homogeneous: float
+    p_no_contact: float
     n_data: int
     n_advances: int
     note: str = ""
@@ -307,6 +310,9 @@ class ContactFitter:
             hi_i += 1
         stat = max(0.0, (total0 - chi2_min) / scale)
         p_hom = float(chi2_dist.sf(stat, 2))
+        # posterior weight of the homogeneous model, equal priors, BIC approximation
+        d_bic = stat - 2.0 * math.log(max(n_data, 2))      # BIC0 - BIC1
+        p_none = float(1.0 / (1.0 + math.exp(min(700.0, 0.5 * d_bic))))
         ahead = float(x_grid[best] - cur)
         lo_m = float(x_grid[lo_i] - cur)
         hi_m = float(x_grid[hi_i] - cur) if hi_i < prof.size - 1 else math.nan
@@ -323,10 +329,10 @@ class ContactFitter:
             note = f"interval widened by the reduced chi-squared {scale:.2f} of the best fit"
         if not found:
             return ContactEstimate(False, math.nan, math.nan, math.nan, math.nan, 1.0, rho1,
-                                   rho1, chi2_min, total0, p_hom, n_data, len(likelihoods), note)
+                                   rho1, chi2_min, total0, p_hom, p_none, n_data, len(likelihoods), note)
         return ContactEstimate(True, ahead, lo_m, hi_m, float(x_grid[best]), contrast, rho1,
-                               rho1 * contrast, chi2_min, total0, p_hom, n_data,
-                               len(likelihoods), note)
+                               rho1 * contrast, chi2_min, total0, p_hom, p_none,
+                               n_data, len(likelihoods), note)
 
     def fit_drive(self, r_obs: np.ndarray, rel_error: np.ndarray, faces_m: Sequence[float],
                   use: np.ndarray | None = None) -> list[ContactEstimate]:
