@@ -329,7 +329,8 @@ class ContactFitter:
             note = f"interval widened by the reduced chi-squared {scale:.2f} of the best fit"
         if not found:
             return ContactEstimate(False, math.nan, math.nan, math.nan, math.nan, 1.0, rho1,
-                                   rho1, chi2_min, total0, p_hom, p_none, n_data, len(likelihoods), note)
+                                   rho1, chi2_min, total0, p_hom, p_none, n_data,
+                                   len(likelihoods), note)
         return ContactEstimate(True, ahead, lo_m, hi_m, float(x_grid[best]), contrast, rho1,
                                rho1 * contrast, chi2_min, total0, p_hom, p_none,
                                n_data, len(likelihoods), note)

@@ -35,7 +35,7 @@ GROUND, MACHINE, TUNNEL = 1, 2, 3
 
 
 @dataclass(frozen=True)
-class SectionSettings:
+class Section25DSettings:
     """Mesh and model settings of the Cartesian 2.5D section (m, ohm-m).
 
     Attributes
@@ -79,10 +79,10 @@ class SectionModel:
         The 3D model for the ratio correction (built on first use if not given).
     """
 
-    def __init__(self, layout: Layout, settings: SectionSettings | None = None,
+    def __init__(self, layout: Layout, settings: Section25DSettings | None = None,
                  reference: Any | None = None, **_: Any) -> None:
         self.layout = layout
-        self.settings = settings or SectionSettings()
+        self.settings = settings or Section25DSettings()
         self._reference = reference
         self._meshes: dict[tuple, tuple[Any, np.ndarray, dict[str, int]]] = {}
         self._ratio: dict[tuple, np.ndarray] = {}
@@ -233,4 +233,4 @@ class SectionModel:
         return r
 
 
-__all__ = ["SectionModel", "SectionSettings"]
+__all__ = ["SectionModel", "Section25DSettings"]

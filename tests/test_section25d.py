@@ -8,7 +8,7 @@ import pytest
 from tbminv.ground import Scenario
 from tbminv.layout import Layout
 from tbminv.models import make_model
-from tbminv.section25d import SectionModel, SectionSettings
+from tbminv.section25d import Section25DSettings, SectionModel
 
 
 def layout(model_body: bool, cover_m: float = 14.0) -> Layout:
@@ -34,7 +34,7 @@ def test_half_space_matches_image_solution():
     # 1990, Applied Geophysics 2nd ed., sec. 8.3). pyGIMLi 2.5D, sr=False, 5 cm refinement
     # nodes around electrodes, quality 34, max area 50 m^2: within 2.5 %.
     lay = layout(model_body=False)
-    r = SectionModel(lay, SectionSettings(ratio_correction=False)).response(
+    r = SectionModel(lay, Section25DSettings(ratio_correction=False)).response(
         Scenario.homogeneous(100.0), 0.0)
     expected = make_model("analytic", lay).response(Scenario.homogeneous(100.0), 0.0)
     np.testing.assert_allclose(r, expected, rtol=0.025)
@@ -52,8 +52,8 @@ def test_projection_moves_side_electrodes_off_the_slab():
 def test_steel_slab_bias_is_large():
     # the known bias: the slab is earthed across the whole section, so potentials near the
     # machine fall far below the same layout without steel
-    with_steel = SectionModel(layout(True), SectionSettings(ratio_correction=False))
-    without = SectionModel(layout(False), SectionSettings(ratio_correction=False))
+    with_steel = SectionModel(layout(True), Section25DSettings(ratio_correction=False))
+    without = SectionModel(layout(False), Section25DSettings(ratio_correction=False))
     hom = Scenario.homogeneous(100.0)
     ratio = with_steel.response(hom, 0.0)[0] / without.response(hom, 0.0)[0]
     assert ratio < 0.5
