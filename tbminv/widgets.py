@@ -1,0 +1,181 @@
+"""Notebook explorer of the moving section (ipywidgets on top of :mod:`tbminv.figures`).
+
+:class:`SectionExplorer` shows the section ahead of the face at the advance chosen on a slider,
+a toggle for fading the cells the data do not constrain, a chainage slider with the
+resistivity history of that chainage as the face approached, and the data fit with the chosen
+advance marked. All drawing is done by :mod:`tbminv.figures`; the explorer renders the figures
+to PNG into :class:`ipywidgets.Image` views, so it needs no interactive matplotlib backend and
+its callbacks run (and are tested) without a browser.
+
+Where widgets are not rendered (a static notebook view, a plain terminal), the explorer's
+display falls back to a PNG of the current figures, and :func:`explore` with ``static=True``
+(the default outside a Jupyter kernel) returns the static figures instead.
+"""
+
+from __future__ import annotations
+
+import io
+import logging
+from typing import Any
+
+import numpy as np
+import xarray as xr
+from matplotlib.figure import Figure
+
+from tbminv import figures
+
+_LOG = logging.getLogger("tbminv.widgets")
+
+
+def _png(fig: Figure, dpi: int = 80) -> bytes:
+    buf = io.BytesIO()
+    fig.savefig(buf, format="png", dpi=dpi)
+    return buf.getvalue()
+
+
+def _in_kernel() -> bool:
+    try:
+        from IPython import get_ipython
+    except ImportError:  # pragma: no cover
+        return False
+    ip = get_ipython()
+    return ip is not None and getattr(ip, "kernel", None) is not None
+
+
+class SectionExplorer:
+    """Sliders over advances and chainages of a section, drawn with :mod:`tbminv.figures`.
+
+    Parameters
+    ----------
+    ds : xarray.Dataset
+        Section (machine frame) from :func:`tbminv.section.open_section`.
+    dpi : int
+        Resolution of the rendered figures.
+
+    Attributes
+    ----------
+    advance, mask, chainage : ipywidgets
+        The controls (a selection slider over advance numbers, a check box, a float slider
+        in m).
+    section_view, history_view, fit_view : ipywidgets.Image
+        The rendered figures.
+    widget : ipywidgets.VBox
+        Everything, for display.
+    renders : int
+        Number of redraws so far.
+    """
+
+    def __init__(self, ds: xr.Dataset, *, dpi: int = 80) -> None:
+        import ipywidgets as w
+
+        self.ds = ds
+        self.dpi = dpi
+        self.norm = figures.resistivity_norm(ds)
+        advs = [int(a) for a in ds["advance"].values]
+        ahead = ds["ahead"].values
+        faces = ds["face_chainage_m"].values
+        x0 = float(np.nanmin(faces))
+        x1 = float(np.nanmax(faces) + ahead[-1])
+        step = float(np.min(np.diff(ahead)))
+        start = float(faces[-1] + min(10.0, ahead[-1] / 2))
+        self.advance = w.SelectionSlider(options=advs, value=advs[-1], description="advance",
+                                         continuous_update=False)
+        self.mask = w.Checkbox(value=True, description="fade cells the data do not constrain",
+                               indent=False)
+        self.chainage = w.FloatSlider(value=min(max(start, x0), x1), min=x0, max=x1, step=step,
+                                      description="chainage (m)", continuous_update=False,
+                                      readout_format=".1f")
+        self.section_view = w.Image(format="png")
+        self.history_view = w.Image(format="png")
+        self.fit_view = w.Image(format="png")
+        self.renders = 0
+        self.advance.observe(self._on_advance, names="value")
+        self.mask.observe(self._on_mask, names="value")
+        self.chainage.observe(self._on_chainage, names="value")
+        self.widget = w.VBox([w.HBox([self.advance, self.mask]), self.section_view,
+                              self.chainage, w.HBox([self.history_view, self.fit_view])])
+        self.render()
+
+    # figures --------------------------------------------------------------------------
+    def section_figure(self) -> Figure:
+        """The section ahead of the face at the chosen advance."""
+        return figures.plot_section_ahead(self.ds, self.advance.value, mask=self.mask.value,
+                                          norm=self.norm)
+
+    def history_figure(self) -> Figure:
+        """Resistivity history of the chosen chainage; the chosen advance marked."""
+        fig = figures.plot_chainage_history(self.ds, float(self.chainage.value),
+                                            mask=self.mask.value)
+        face = float(self.ds["face_chainage_m"].sel(advance=self.advance.value))
+        fig.axes[0].axvline(float(self.chainage.value) - face, color="C1", lw=1.2, alpha=0.7)
+        return fig
+
+    def fit_figure(self) -> Figure:
+        """Data fit per advance with the chosen advance marked."""
+        return figures.plot_data_fit(self.ds, highlight=self.advance.value)
+
+    def static_figures(self) -> list[Figure]:
+        """The three current figures (for static output)."""
+        return [self.section_figure(), self.history_figure(), self.fit_figure()]
+
+    # callbacks ------------------------------------------------------------------------
+    def render(self, which: tuple[str, ...] = ("section", "history", "fit")) -> None:
+        """Redraw the named views."""
+        if "section" in which:
+            self.section_view.value = _png(self.section_figure(), self.dpi)
+        if "history" in which:
+            self.history_view.value = _png(self.history_figure(), self.dpi)
+        if "fit" in which:
+            self.fit_view.value = _png(self.fit_figure(), self.dpi)
+        self.renders += 1
+
+    def _on_advance(self, change: dict[str, Any]) -> None:
+        self.render(("section", "history", "fit"))
+
+    def _on_mask(self, change: dict[str, Any]) -> None:
+        self.render(("section", "history"))
+
+    def _on_chainage(self, change: dict[str, Any]) -> None:
+        self.render(("history",))
+
+    # display --------------------------------------------------------------------------
+    def _repr_mimebundle_(self, **kwargs: Any) -> dict[str, Any]:
+        bundle = dict(self.widget._repr_mimebundle_(**kwargs) or {})
+        # a static view that cannot render widgets shows the current section as PNG
+        import base64
+
+        bundle["image/png"] = base64.b64encode(self.section_view.value).decode("ascii")
+        bundle["text/plain"] = (f"SectionExplorer: advances {self.advance.options[0]}-"
+                                f"{self.advance.options[-1]} (widgets not rendered here: "
+                                "see the PNG, or use tbminv.figures)")
+        return bundle
+
+
+def explore(ds: xr.Dataset, *, static: bool | None = None) -> SectionExplorer | list[Figure]:
+    """The explorer in a Jupyter kernel, else (or with ``static=True``) the static figures.
+
+    Parameters
+    ----------
+    ds : xarray.Dataset
+        Section (machine frame).
+    static : bool, optional
+        Force static figures (True) or widgets (False); default: widgets in a Jupyter kernel.
+
+    Returns
+    -------
+    SectionExplorer or list of Figure
+        The explorer (display it) or [section ahead at the last advance, moving section,
+        ahead profile, data fit].
+    """
+    if static is None:
+        static = not _in_kernel()
+    if not static:
+        try:
+            return SectionExplorer(ds)
+        except ImportError:  # pragma: no cover - ipywidgets is a dependency
+            _LOG.warning("ipywidgets not available: static figures instead")
+    return [figures.plot_section_ahead(ds), figures.plot_moving_section(ds),
+            figures.plot_ahead_profile(ds), figures.plot_data_fit(ds)]
+
+
+__all__ = ["SectionExplorer", "explore"]

@@ -1,0 +1,146 @@
+"""Change ahead on hand-built sections (invented data: plumbing and logic tests).
+
+The synthetic sections come from tests/test_section.make_results: a smooth step at a fixed
+chainage whose sharpness fades with distance ahead, coverage fading ahead and outward.
+"""
+
+from __future__ import annotations
+
+import importlib.util
+
+import pytest
+from test_section import make_section
+
+from tbminv.ahead import LEVELS, AheadSettings, AheadSettingsError, detect_changes
+
+
+def test_stationary_contact_from_contact_fits_is_firm():
+    s = detect_changes(make_section(range(8), rho_beyond=12.0))
+    assert s.level == "firm"
+    c = s.changes[0]
+    assert c.chainage_m == pytest.approx(1230.0, abs=3.0)  # within 0.5 D (D = 6 m)
+    assert c.direction == "less resistive" and c.contrast_factor > 3
+    assert c.distance_ahead_m == pytest.approx(1230.0 - 1210.5, abs=3.0)
+    assert 0.5 < c.confidence <= 1.0
+    assert c.chainage_lo_m <= 1230.0 <= c.chainage_hi_m
+
+
+@pytest.mark.parametrize("beyond, direction", [(12.0, "less resistive"),
+                                               (800.0, "more resistive")])
+def test_stationary_contact_from_section_profile(beyond, direction):
+    s = detect_changes(make_section(range(10), rho_beyond=beyond, with_contact_fit=False,
+                                    noise_log10=0.01))
+    assert s.changes, s.describe()
+    c = s.changes[0]
+    assert c.level in ("likely", "firm")
+    assert c.direction == direction
+    assert c.chainage_m == pytest.approx(1230.0, abs=3.0)
+    assert abs(c.slope) < 0.35
+
+
+def test_machine_locked_artefact_rejected():
+    ds = make_section(range(8), artefact_ahead_m=8.0, artefact_shape="step",
+                      with_contact_fit=False, noise_log10=0.01)
+    s = detect_changes(ds)
+    assert not s.changes, s.describe()
+    assert s.rejected and s.rejected[0].slope == pytest.approx(1.0, abs=0.2)
+    assert s.level == "none seen"
+    assert any("rejected" in line for line in s.describe())
+
+
+@pytest.mark.parametrize("seed", [0, 1, 2])
+def test_homogeneous_with_noise_reports_nothing(seed):
+    ds = make_section(range(10), noise_log10=0.03, with_contact_fit=False, seed=seed)
+    s = detect_changes(ds)
+    assert s.level == LEVELS[0] and not s.changes and not s.picks
+    assert s.reach_m > 10.0
+
+
+def test_flagged_advances_are_left_out():
+    ds = make_section(range(8), rho_beyond=12.0, flagged=(6, 7))
+    s = detect_changes(ds)
+    assert s.advances_flagged == [6, 7]
+    assert 6 not in s.changes[0].advances
+
+
+def test_settings_from_toml(tmp_path):
+    p = tmp_path / "settings.toml"
+    p.write_text("[ahead]\nmin_contrast = 3.0\nfirm_advances = 6\n")
+    st = AheadSettings.from_toml(p)
+    assert st.min_contrast == 3.0 and st.firm_advances == 6
+    p.write_text("[ahead]\nmin_contrats = 3.0\n")
+    with pytest.raises(AheadSettingsError, match=r"\[ahead\] min_contrats: unknown key"):
+        AheadSettings.from_toml(p)
+    p.write_text("[ahead]\nfirm_advances = 2.5\n")
+    with pytest.raises(AheadSettingsError, match="firm_advances"):
+        AheadSettings.from_toml(p)
+
+
+def _missing(module):
+    return importlib.util.find_spec(module) is None
+
+
+needs_chain = pytest.mark.skipif(_missing("tbminv.invert") or _missing("tbminv.simulate"),
+                                 reason="end-to-end detection needs tbminv.simulate and "
+                                        "tbminv.invert")
+
+
+def _drive(tmp_path, ground_toml, noise_rel, seed):
+    """Simulate a drive (3D model) and invert it, through the command line of DESIGN 3.5."""
+    import subprocess
+    import sys
+
+    from tbminv.layout import demo_layout_path
+    from tbminv.section import open_section
+
+    ground = tmp_path / "ground.toml"
+    ground.write_text(ground_toml)
+    readings, store = tmp_path / "readings.csv", tmp_path / "section.nc"
+    run = [sys.executable, "-m", "tbminv"]
+    subprocess.run(run + ["simulate", "--layout", str(demo_layout_path()), "--ground",
+                          str(ground), "--faces", "1200:1227:1.5", "--out", str(readings),
+                          "--model", "3d", "--noise-rel", str(noise_rel), "--seed", str(seed)],
+                   check=True, capture_output=True, timeout=3600)
+    subprocess.run(run + ["invert", str(readings), "--layout", str(demo_layout_path()),
+                          "--store", str(store)], check=True, capture_output=True, timeout=3600)
+    return open_section(store)
+
+
+@pytest.mark.slow
+@needs_chain
+@pytest.mark.parametrize("beyond", [8.0, 800.0])
+def test_end_to_end_contact_reported_two_diameters_ahead(tmp_path, beyond):
+    # 10:1 and 1:10 contacts 30 m ahead of the first face, faces every 1.5 m; 2 % noise, seed 7
+    ds = _drive(tmp_path, "background_resistivity_ohmm = 80.0\n[[contact]]\n"
+                          f"chainage_m = 1230.0\nresistivity_ohmm = {beyond}\n", 0.02, 7)
+    diam = float(ds.attrs["machine_diameter_m"])
+    early = ds["advance"].values[ds["face_chainage_m"].values <= 1230.0 - 2 * diam]
+    s = detect_changes(ds.sel(advance=early))
+    assert s.changes and s.changes[0].level in ("likely", "firm"), s.describe()
+    assert s.changes[0].chainage_m == pytest.approx(1230.0, abs=0.5 * diam)
+
+
+@pytest.mark.slow
+@needs_chain
+def test_end_to_end_homogeneous_drive_reports_nothing(tmp_path):
+    # homogeneous 80 ohm-m, 3 % noise, seed 11
+    ds = _drive(tmp_path, "background_resistivity_ohmm = 80.0\n", 0.03, 11)
+    s = detect_changes(ds)
+    assert not s.changes, s.describe()
+
+
+def test_change_reached_by_the_face_is_not_ahead():
+    # contact at 1204 m: the faces 1200-1210.5 m pass it; picks come from early advances only
+    ds = make_section(range(8), rho_beyond=12.0, contact_chainage_m=1204.0)
+    s = detect_changes(ds)
+    assert not s.changes
+    assert s.passed and s.passed[0].chainage_m == pytest.approx(1204.0, abs=1.0)
+    assert any("reached by the face" in line for line in s.describe())
+
+
+def test_contact_fit_without_around_value_uses_profile():
+    ds = make_section(range(6), rho_beyond=12.0)
+    ds["resistivity_around"][:] = float("nan")
+    c = detect_changes(ds).changes[0]
+    assert c.direction == "less resistive"
+    assert c.resistivity_around_ohmm == pytest.approx(80.0, rel=0.05)

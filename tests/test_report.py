@@ -1,0 +1,100 @@
+"""Shift report: the PDF renders (pdftoppm) and carries the caution text (pypdf).
+
+Invented sections (tests/test_section.make_results): plumbing tests only.
+"""
+
+from __future__ import annotations
+
+import argparse
+import re
+import shutil
+import subprocess
+
+import numpy as np
+import pytest
+from pypdf import PdfReader
+from test_section import make_section
+
+import tbminv
+from tbminv import figures
+from tbminv.report import run_report_cli, write_report
+from tbminv.section import append_shift, open_section
+
+
+@pytest.fixture(scope="module")
+def store(tmp_path_factory):
+    path = tmp_path_factory.mktemp("report") / "section.nc"
+    append_shift(path, make_section(range(0, 6), rho_beyond=12.0, noise_log10=0.01), "day-1")
+    append_shift(path, make_section(range(6, 12), rho_beyond=12.0, noise_log10=0.01,
+                                    flagged=(8,)), "night-1")
+    return path
+
+
+def _words(text):
+    return re.sub(r"\s+", " ", text).strip()
+
+
+def test_report_pdf_renders_and_contains_caution(store, tmp_path):
+    qc = {"readings used": 1180, "readings quarantined": 12, "error model b (-)": 0.02}
+    paths = write_report(store, tmp_path / "out", qc_summary=qc)
+    pdf = paths[0]
+    assert pdf.suffix == ".pdf" and pdf.exists()
+    assert {p.suffix for p in paths[1:]} == {".png"} and len(paths) == 5
+    assert all(p.stat().st_size > 1000 for p in paths)
+    reader = PdfReader(pdf)
+    assert len(reader.pages) >= 7
+    text = _words(" ".join(page.extract_text() for page in reader.pages))
+    assert _words(tbminv.CAUTION) in text
+    assert "readings quarantined: 12" in text
+    assert "level of concern: firm" in text
+    assert "Reynolds 2011" in text  # the materials table names its source
+    assert "ohm-m -> clay" in text  # candidate materials listed
+    for key in ("inputs SHA-256", "settings SHA-256", "pyGIMLi 1.6"):
+        assert key in text
+    if shutil.which("pdftoppm") is None:
+        pytest.skip("pdftoppm (Debian poppler-utils) not installed")
+    subprocess.run(["pdftoppm", "-r", "40", "-png", str(pdf), str(tmp_path / "page")],
+                   check=True, capture_output=True, timeout=120)
+    pngs = sorted(tmp_path.glob("page-*.png"))
+    assert len(pngs) == len(reader.pages)
+    assert all(p.stat().st_size > 2000 for p in pngs)
+
+
+def test_report_of_named_shift_and_cli(store, tmp_path, capsys):
+    paths = write_report(store, tmp_path / "a", shift="day-1")
+    text = _words(" ".join(p.extract_text() for p in PdfReader(paths[0]).pages))
+    assert "shift day-1: advances 0-5" in text
+    rc = run_report_cli(argparse.Namespace(store=str(store), out=str(tmp_path / "cli")))
+    assert rc == 0
+    out = capsys.readouterr().out
+    assert "report_night-1.pdf" in out and out.count("wrote ") == len(paths)
+    rc = run_report_cli(argparse.Namespace(store=str(tmp_path / "none.nc"),
+                                           out=str(tmp_path / "x")))
+    assert rc == 2
+
+
+def test_figures_have_units_and_save(store, tmp_path):
+    ds = open_section(store)
+    figs = [figures.plot_moving_section(ds), figures.plot_section_ahead(ds, 7),
+            figures.plot_ahead_profile(ds), figures.plot_chainage_history(ds, 1225.0),
+            figures.plot_data_fit(ds, highlight=7)]
+    for fig in figs:
+        for ax in fig.axes:
+            label = ax.get_ylabel()
+            if ax.get_label() == "<colorbar>":
+                assert "ohm" in label
+                continue
+            assert re.search(r"\(.+\)", ax.get_xlabel() or "(x)"), ax.get_xlabel()
+            assert re.search(r"\(.+\)", label), label
+    out = figures.save_figure(figs[0], tmp_path / "fig" / "moving")
+    assert [p.suffix for p in out] == [".pdf", ".png"] and all(p.exists() for p in out)
+
+
+def test_ahead_profile_band_contains_profile(store):
+    ds = open_section(store)
+    p = figures.ahead_profile(ds)
+    ok = np.isfinite(p["resistivity_ohmm"]) & (p["ahead_m"] >= 0)
+    assert np.all(p["lo_ohmm"][ok] <= p["resistivity_ohmm"][ok] * (1 + 1e-9))
+    assert np.all(p["hi_ohmm"][ok] >= p["resistivity_ohmm"][ok] * (1 - 1e-9))
+    h = figures.chainage_history(ds, 1225.0)
+    assert np.isfinite(h["resistivity_ohmm"]).sum() >= 10
