@@ -66,9 +66,9 @@ class ContactFitSettings:
         Points of the interpolated contrast grid.
     """
 
-    contrasts: tuple[float, ...] = (0.05, 0.1, 0.2, 0.35, 0.6, 1.0, 1.7, 3.0, 5.0, 10.0, 20.0)
+    contrasts: tuple[float, ...] = (0.05, 0.1, 0.25, 0.5, 1.0, 2.0, 4.0, 10.0, 20.0)
     distances_in_diameters: tuple[float, ...] = tuple(
-        float(x) for x in np.round(np.geomspace(0.1, 12.0, 22), 4))
+        float(x) for x in np.round(np.geomspace(0.1, 12.0, 15), 4))
     confidence: float = 0.95
     p_threshold: float = 0.01
     window: int = 30
