@@ -455,7 +455,11 @@ class DriveOperator:
         self.grid = grid
         self.face_chainage_m = face_chainage_m
         self.cutterhead_deg = cutterhead_deg
-        self.fwd = model.model_for(face_chainage_m, cutterhead_deg)
+        from tbminv.axisym import LayoutAxisym
+
+        # an instance of our own: filling a scenario moves grid lines of a shared model
+        self.fwd = LayoutAxisym(layout, cutterhead_deg, face_chainage_m,
+                                getattr(model, "settings", None))
         c = self.fwd.forward.ground_centers()
         p = grid.locate(c[:, 0], c[:, 1])
         if np.any(p < 0):
@@ -485,32 +489,11 @@ class DriveOperator:
 def make_pg_modelling(op: DriveOperator, sel: np.ndarray, k: np.ndarray,
                       cutterhead_deg: float) -> Any:
     """A :class:`pygimli.Modelling` of apparent resistivities ``k R`` of readings ``sel``."""
-    from tbminv.gimli import pg
+    from tbminv.axisym_modelling import AxisymModelling, AxisymParameterGrid
 
-    class _Modelling(pg.Modelling):
-        def __init__(self) -> None:
-            super().__init__()
-            self.setMesh(op.grid.mesh)
-            # The Jacobian matrix must exist and be set before the inversion starts and then be
-            # filled in place: setting a new matrix inside createJacobian (or leaving pyGIMLi's
-            # default brute-force Jacobian) crashed pgcore 1.6.0 with a segmentation fault.
-            self._J = pg.Matrix(int(sel.size), op.grid.n_param)
-            self.setJacobian(self._J)
-            self.last_r = None
-
-        def response(self, model: Any) -> Any:
-            r = op.response(np.asarray(model), cutterhead_deg)[sel]
-            return pg.Vector(k * r)
-
-        def createJacobian(self, model: Any) -> None:  # noqa: N802 - pyGIMLi's name
-            m = np.asarray(model)
-            r, j = op.jacobian(m, cutterhead_deg)
-            jj = (j[sel] * k[:, None]) / m[None, :]       # d(k R)/d rho
-            for i in range(jj.shape[0]):
-                self._J[i] = pg.Vector(jj[i])
-            self.last_r = r
-
-    return _Modelling()
+    grid = AxisymParameterGrid(op.grid.x_nodes, op.grid.r_nodes, op.grid.keep, op.grid.mesh,
+                               op.P)
+    return AxisymModelling(op.fwd, grid, cutterhead_deg=cutterhead_deg, scale=k, select=sel)
 
 
 # ------------------------------------------------------------------------ one advance

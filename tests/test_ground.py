@@ -80,9 +80,12 @@ def test_axisymmetry():
     assert sym.axisymmetric_problems() == []
     np.testing.assert_array_equal(sym.resistivity_axisym([4.0, 6.0, 9.0], [0.0, 3.0, 0.5]),
                                   [50.0, 5.0, 1.0])
-    demo = load_scenario(demo_ground_path())
+    off = Scenario.from_dict({"background_resistivity_ohmm": 50.0,
+                              "sphere": [{"chainage_m": 9.0, "y_m": 1.5, "radius_m": 1.0,
+                                          "resistivity_ohmm": 1.0}]})
     with pytest.raises(NotAxisymmetricError, match="3D model"):
-        demo.resistivity_axisym([1.0], [1.0])
+        off.resistivity_axisym([1.0], [1.0])
+    assert load_scenario(demo_ground_path()).axisymmetric_problems() == []
     dip = Scenario.from_dict({"background_resistivity_ohmm": 50.0,
                               "contact": [{"chainage_m": 5.0, "dip_deg": 60.0,
                                            "resistivity_ohmm": 5.0}]})

@@ -1,0 +1,77 @@
+"""Axisymmetric model with the steel machine and the tunnel: invariants and limits."""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pytest
+
+from tbminv.axisym import AxElectrode, AxisymForward, AxisymSettings
+from tbminv.cylmesh import CylGeometry, CylMeshSettings
+
+GEO = CylGeometry(machine_radius_m=3.1, shield_length_m=9.5, tunnel_length_m=30.0)
+MESH = CylMeshSettings(h_fine_m=0.05, growth=1.2)
+ELS = [AxElectrode("C1", 0.05, 0.4, 0.0), AxElectrode("C4", 0.05, 2.8, 135.0),
+       AxElectrode("S1", -1.5, 3.2, 0.0), AxElectrode("W1", -15.0, 3.3, 0.0),
+       AxElectrode("M0", on_steel=True), AxElectrode("F", 150.0, 0.0, 0.0)]
+LABELS = [e.label for e in ELS]
+
+
+def _potentials(**kw):
+    s = AxisymSettings(mesh=MESH, max_harmonics=60, **kw)
+    f = AxisymForward(ELS, LABELS, LABELS, GEO, s)
+    return f.solve(np.full(len(f.ground_cells), 100.0)).potentials()
+
+
+@pytest.fixture(scope="module")
+def perfect():
+    return _potentials()
+
+
+def test_reciprocity_with_steel(perfect):
+    """Reciprocity (swap current and potential electrodes: Green's reciprocity theorem, e.g.
+    Telford et al. 1990 sec. 8.2) holds with the steel and tunnel in: within 0.5 %."""
+    g = perfect
+    off = ~np.eye(len(LABELS), dtype=bool)
+    rel = np.abs(g - g.T)[off] / np.abs(g)[off]
+    assert np.max(rel) < 5e-3
+
+
+def test_capped_steel_tends_to_perfect_conductor(perfect):
+    """Capped steel resistivity 1e-2 -> 1e-6 ohm-m approaches the perfect-conductor limit
+    (exact limit of the floating equipotential body): same splitting (no mirror image) within
+    0.05 % at 1e-6; the default perfect conductor with mirror images within 1 %."""
+    plain = _potentials(face_image=False)
+    errs = []
+    for cap in (1e-2, 1e-4, 1e-6):
+        g = _potentials(steel="capped", steel_resistivity_ohmm=cap)
+        errs.append(np.nanmax(np.abs(g / plain - 1)))
+    assert errs[2] < 5e-4
+    assert errs[0] >= errs[2]
+    assert np.nanmax(np.abs(g / perfect - 1)) < 1e-2
+
+
+def test_current_into_machine_far_field(perfect):
+    """Current into the whole body: far away the body is a point source of the same current
+    (Gauss's law), V = rho I / (4 pi R) at 150 m from the body centre: within 0.5 %."""
+    g = perfect
+    v = g[LABELS.index("F"), LABELS.index("M0")]
+    ref = 100.0 / (4 * math.pi * (150.0 + 0.5 * 9.5))
+    assert v == pytest.approx(ref, rel=5e-3)
+
+
+def test_insulated_face_electrode_near_machine_potential(perfect):
+    """An insulated electrode 5 cm in front of the steel face reads close to the machine's
+    potential when current enters the body (within about 1 % for D = 6 m: a 3D trial noted in
+    the shared pyGIMLi notes; here within 2 %)."""
+    g = perfect
+    vm = g[LABELS.index("M0"), LABELS.index("M0")]
+    vc = g[LABELS.index("C1"), LABELS.index("M0")]
+    assert vc == pytest.approx(vm, rel=2e-2)
+
+
+def test_electrode_on_steel_is_refused():
+    with pytest.raises(ValueError, match="on the steel"):
+        AxisymForward([AxElectrode("X", -2.0, 1.0)], ["X"], ["X"], GEO,
+                      AxisymSettings(mesh=MESH))
