@@ -88,6 +88,7 @@ def atomic_path(path: str | os.PathLike[str]) -> Iterator[Path]:
         yield tmp_path
         with open(tmp_path, "rb") as fh:
             os.fsync(fh.fileno())
+        os.chmod(tmp_path, 0o644)  # mkstemp makes owner-only files
         os.replace(tmp_path, target)
     finally:
         if tmp_path.exists():

@@ -25,6 +25,11 @@ def demo_readings_path() -> Path:
     return DATA / "demo_readings.csv"
 
 
+def demo_settings_path() -> Path:
+    """Path of the bundled demo settings (``[qc]``, ``[invert]``, ``[contact]``)."""
+    return DATA / "demo_settings.toml"
+
+
 def _optional(name: str):  # noqa: ANN202 - module or None
     try:
         return importlib.import_module(f"tbminv.{name}")
@@ -59,6 +64,13 @@ def run_demo(out_dir: Path) -> int:
     print(f"  readings log: {readings}")
     steps = (("check", "qc"), ("invert", "invert"), ("report", "report"))
     store = out / "section.nc"
+    inv_settings = qc_settings = None
+    qc_summary = None
+    if _optional("invert") is not None:
+        from tbminv.invert import load_settings
+
+        inv_settings, qc_settings = load_settings(demo_settings_path())
+        print(f"  settings: {demo_settings_path()}")
     for step, module in steps:
         mod = _optional(module)
         if mod is None:
@@ -66,16 +78,19 @@ def run_demo(out_dir: Path) -> int:
                   "the demo stops here")
             break
         if step == "check":
-            result = mod.run_check(readings, layout, out / "check")
+            result = mod.run_check(readings, layout, out / "check", qc_settings)
             for line in result.describe():
                 print(f"  check: {line}")
+            qc_summary = result.summary.get("qc")
             if not result.usable:
                 return 1
         elif step == "invert":
-            mod.run_drive(readings, layout, store, out_dir=out / "invert")
-            print(f"  invert: section store -> {store}")
+            ds = mod.run_drive(readings, layout, store, settings=inv_settings,
+                               qc_settings=qc_settings, out_dir=out / "invert",
+                               layout_path=demo_layout_path(), progress=True)
+            print(f"  invert: {ds.sizes['advance']} advances -> section store {store}")
         else:
-            paths = mod.write_report(store, out / "report")
+            paths = mod.write_report(store, out / "report", qc_summary=qc_summary)
             for p in paths:
                 print(f"  report: {p}")
     print(tbminv.CAUTION)

@@ -59,6 +59,23 @@ class AnalyticModel:
         return layout_response(self.layout, scenario, face_chainage_m, cutterhead_deg)
 
 
+class Model3D:
+    """pyGIMLi 3D finite elements (see :class:`tbminv.forward3d.Forward3D`)."""
+
+    def __init__(self, layout: Layout, **opts: Any) -> None:
+        from tbminv.forward3d import Forward3D
+
+        self.layout = layout
+        self.forward = Forward3D(layout, opts.get("settings"))
+        self.settings = opts.get("settings")
+
+    def response(self, scenario: Scenario, face_chainage_m: float,
+                 cutterhead_deg: float = 0.0) -> np.ndarray:
+        """Transfer resistances, ohm."""
+        return np.asarray(self.forward.run(scenario, face_chainage_m, cutterhead_deg).r_ohm,
+                          float)
+
+
 def _lazy(module: str, attr: str) -> Callable[..., ForwardModel]:
     def factory(layout: Layout, **opts: Any) -> ForwardModel:
         try:
@@ -76,7 +93,7 @@ def _lazy(module: str, attr: str) -> Callable[..., ForwardModel]:
 _FACTORIES: dict[str, Callable[..., ForwardModel]] = {
     "analytic": AnalyticModel,
     "axisym": _lazy("axisym", "AxisymModel"),
-    "3d": _lazy("forward3d", "Model3D"),
+    "3d": Model3D,
     "section": _lazy("section25d", "SectionModel"),
 }
 
