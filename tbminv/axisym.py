@@ -56,6 +56,14 @@ import scipy.sparse as sp
 from tbminv.cylmesh import CylGeometry, CylMesh, CylMeshSettings, build_cylmesh
 
 _LOG = logging.getLogger("tbminv.axisym")
+_WARNED: set[tuple] = set()
+
+
+def _warn_once(key: tuple, msg: str, *args: Any) -> None:
+    """Log a warning once per process and key (repeated per advance it is only noise)."""
+    if key not in _WARNED:
+        _WARNED.add(key)
+        _LOG.warning(msg, *args)
 
 try:  # CHOLMOD is optional: scipy's LU is the fallback
     from sksparse.cholmod import cholesky as _cholmod_cholesky
@@ -749,8 +757,9 @@ class AxisymForward:
             cells = self._node_cells[self.node_of[es.label]]
             s = sig[cells]
             if np.ptp(s) > 1e-9 * np.max(s):
-                _LOG.warning("electrode %s: the cells around it differ in resistivity; the "
-                             "singularity removal assumes them equal (mean used)", es.label)
+                _warn_once(("mixed-source", es.label),
+                           "electrode %s: the cells around it differ in resistivity; the "
+                           "singularity removal assumes them equal (mean used)", es.label)
             rho[js] = 1.0 / float(np.mean(s))
         return rho
 
@@ -1060,9 +1069,10 @@ class LayoutAxisym:
         self.face_chainage_m = face_chainage_m
         mach, tun = layout.machine, layout.tunnel
         if math.isfinite(tun.cover_m):
-            _LOG.warning("%s: the ground surface (cover %.1f m) is not axisymmetric; the "
-                         "axisymmetric model treats the ground as a full space",
-                         layout.source, tun.cover_m)
+            _warn_once(("cover", layout.source, tun.cover_m),
+                       "%s: the ground surface (cover %.1f m) is not axisymmetric; the "
+                       "axisymmetric model treats the ground as a full space",
+                       layout.source, tun.cover_m)
         geo = CylGeometry(
             machine_radius_m=mach.radius_m if mach.model_body else None,
             shield_length_m=mach.shield_length_m if mach.model_body else 0.0,

@@ -152,7 +152,8 @@ def build_parser() -> argparse.ArgumentParser:
     s.add_argument("--ground", required=True, help="ground scenario file (TOML)")
     s.add_argument("--faces", required=True, help="face chainages START:STOP:STEP, m (inclusive)")
     s.add_argument("--out", required=True, help="readings log to write (CSV or .parquet)")
-    s.add_argument("--model", default="3d", help="forward model: axisym, 3d or section")
+    s.add_argument("--model", default="axisym",
+                   help="forward model: axisym (default), 3d or section")
     s.add_argument("--noise-rel", type=float, default=0.0, help="relative noise (fraction)")
     s.add_argument("--noise-abs", type=float, default=0.0, help="absolute voltage noise, V")
     s.add_argument("--seed", type=int, default=None, help="random seed for the noise")
