@@ -184,6 +184,16 @@ def build_parser() -> argparse.ArgumentParser:
     r.add_argument("--noise-rel", type=float, default=0.02, help="relative noise (fraction)")
     r.add_argument("--noise-abs", type=float, default=0.0, help="absolute noise, V")
     r.add_argument("--sweep", default=None, help="sweep file (TOML)")
+    r.add_argument("--model", default="axisym", choices=("axisym", "analytic", "3d", "section"),
+                   help="forward model (default axisym)")
+    r.add_argument("--model-settings", default="fast", choices=("fast", "standard"),
+                   help="axisym accuracy/speed preset (default fast: within 1 %% of standard)")
+    r.add_argument("--k", type=float, default=3.0,
+                   help="detection threshold in standard deviations (default 3)")
+    r.add_argument("--target", default="contact", choices=("contact", "sphere"),
+                   help="what approaches the face (default: a contact square to the axis)")
+    r.add_argument("--workers", type=int, default=None,
+                   help="workers of the local dask cluster for sweeps (default: CPU count)")
     r.add_argument("--scheduler", default=None, help="dask scheduler address")
     r.set_defaults(func=cmd_reach)
 

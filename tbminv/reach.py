@@ -162,6 +162,8 @@ def _dataset(layout: Layout, settings: ReachSettings, d: np.ndarray, r0: np.ndar
         "b": ("measurement", [m.b or "" for m in q]),
         "m": ("measurement", [m.m for m in q]),
         "n": ("measurement", [m.n or "" for m in q]),
+        "family": ("measurement", [reading_family(layout, m) for m in q],
+                   {"long_name": "kind of reading: current electrodes / potential electrodes"}),
     }
     ds = xr.Dataset(
         {
@@ -182,6 +184,31 @@ def _dataset(layout: Layout, settings: ReachSettings, d: np.ndarray, r0: np.ndar
     ds.attrs["face_chainage_m"] = face
     ds.attrs["diameter_m"] = layout.machine.diameter_m
     return ds
+
+
+def reading_family(layout: Layout, q: Any) -> str:
+    """Kind of a reading from its electrodes, e.g. ``machine / cutterhead pole``.
+
+    A remote electrode (at infinity or far back) makes a pole; a bare stud reads the machine's
+    potential and is named so.
+    """
+    def kind(lab: str | None) -> str | None:
+        if lab is None:
+            return None
+        e = layout.electrode(lab)
+        if e.kind == "remote":
+            return None
+        if e.kind in ("cutterhead", "shield") and not e.insulated:
+            return "bare stud"
+        return e.kind
+
+    def part(x: str | None, y: str | None) -> str:
+        kx, ky = kind(x), kind(y)
+        if kx and ky:
+            return f"{kx} dipole" if kx == ky else f"{kx}-{ky}"
+        return f"{kx or ky or 'remote'} pole"
+
+    return f"{part(q.a, q.b)} / {part(q.m, q.n)}"
 
 
 def _settings_attrs(settings: ReachSettings) -> dict[str, Any]:
@@ -208,7 +235,9 @@ def detectability(ds: xr.Dataset, *, noise_rel: float, noise_abs_v: float = 0.0,
     xarray.Dataset
         The input plus ``relative_error`` (measurement), ``detected`` (measurement,
         distance_ahead), ``detectable_ahead_m`` (measurement; 0 where never), ``usable``
-        (measurement; relative error below 1) and the scalar ``reach_m``.
+        (measurement; relative error below 1), the scalar ``reach_m`` and the flag
+        ``reach_at_grid_end`` (the reach is only a lower bound when it is the grid's last
+        distance).
     """
     r0 = np.abs(ds["r0_ohm"].values)
     a_ohm = noise_abs_v / current_a
@@ -232,14 +261,19 @@ def detectability(ds: xr.Dataset, *, noise_rel: float, noise_abs_v: float = 0.0,
                                                              "the change is detectable"})
     out["usable"] = ("measurement", usable, {"long_name": "relative error below 100 %"})
     out["reach_m"] = ((), reach, {"units": "m", "long_name": "look-ahead reach of the layout"})
+    out["reach_at_grid_end"] = ((), bool(d.size and reach >= d.max()),
+                                {"long_name": "reach is the last distance of the grid (a lower "
+                                              "bound: the change is still seen there)"})
     out.attrs.update(noise_rel=noise_rel, noise_abs_v=noise_abs_v, current_a=current_a, k=k)
     return out
 
 
 def best_measurements(ds: xr.Dataset, n: int = 5) -> list[dict[str, Any]]:
-    """The ``n`` quadrupoles with the largest detectable distance."""
+    """The ``n`` quadrupoles with the largest detectable distance (ties: larger response)."""
     det = ds["detectable_ahead_m"].values
-    order = np.argsort(-det, kind="stable")[:n]
+    # ties (same grid distance) go to the larger mean |dR/R| beyond the face
+    far = np.nan_to_num(np.abs(ds["relative_response"].values)).mean(axis=1)
+    order = np.lexsort((-far, -det))[:n]
     return [{"measurement": int(i), "a": str(ds.a.values[i]), "b": str(ds.b.values[i]),
              "m": str(ds.m.values[i]), "n": str(ds.n.values[i]),
              "detectable_ahead_m": float(det[i])} for i in order]
@@ -253,12 +287,24 @@ def reach_study(layout: Layout, settings: ReachSettings, model: Any | None = Non
 
 
 # ----------------------------------------------------------------------------- sweeps
-def scale_layout(layout: Layout, diameter_m: float, *, length: str = "fixed") -> Layout:
+def scale_layout(layout: Layout, diameter_m: float, *, length: str = "fixed",
+                 face_chainage_m: float | None = None) -> Layout:
     """The layout for another machine diameter.
 
     Radial positions scale with the diameter (shield and wall electrodes keep their offset from
     the skin). With ``length = "proportional"`` the shield length and every axial distance behind
-    the face scale too; with ``"fixed"`` they stay.
+    the face scale too; with ``"fixed"`` they stay. Cutterhead electrodes keep their axial
+    position (a few cm into the ground ahead of the steel).
+
+    Parameters
+    ----------
+    layout : Layout
+    diameter_m : float
+        New machine diameter, m.
+    length : {"fixed", "proportional"}
+    face_chainage_m : float, optional
+        Face chainage about which wall electrodes are scaled, m (default:
+        :func:`default_face_chainage` of ``layout``). Run the scaled layout at this same face.
     """
     if length not in ("fixed", "proportional"):
         raise ValueError(f"length = {length!r}: expected 'fixed' or 'proportional'")
@@ -266,7 +312,7 @@ def scale_layout(layout: Layout, diameter_m: float, *, length: str = "fixed") ->
     r_old = layout.machine.radius_m
     r_new = 0.5 * diameter_m
     ax = s if length == "proportional" else 1.0
-    face = default_face_chainage(layout)
+    face = default_face_chainage(layout) if face_chainage_m is None else float(face_chainage_m)
     machine = dataclasses.replace(layout.machine, diameter_m=diameter_m,
                                   shield_length_m=layout.machine.shield_length_m * ax,
                                   cutterhead_thickness_m=layout.machine.cutterhead_thickness_m
@@ -291,24 +337,42 @@ def _task(config: dict[str, Any]) -> dict[str, Any]:
     os.environ.setdefault("TBMINV_THREADS", "1")
     layout = Layout.from_dict(config["layout"], source="sweep")
     case = config["case"]
+    base = ReachSettings(**config["settings"])
+    # one face chainage for every case: wall electrodes are scaled about it
+    face = base.face_chainage_m
+    if face is None:
+        face = default_face_chainage(layout)
     if "diameter_m" in case:
-        layout = scale_layout(layout, float(case["diameter_m"]), length=config["length"])
+        layout = scale_layout(layout, float(case["diameter_m"]), length=config["length"],
+                              face_chainage_m=face)
     if "shield_length_m" in case:
         layout = dataclasses.replace(layout, machine=dataclasses.replace(
             layout.machine, shield_length_m=float(case["shield_length_m"])))
     if "cover_m" in case:
         layout = dataclasses.replace(layout, tunnel=dataclasses.replace(
             layout.tunnel, cover_m=float(case["cover_m"])))
-    base = ReachSettings(**config["settings"])
     over = {k: float(v) for k, v in case.items() if k in ("contrast", "noise_rel", "noise_abs_v")}
-    settings = dataclasses.replace(base, **over)
+    settings = dataclasses.replace(base, face_chainage_m=face, **over)
     if config.get("distances_in_diameters"):
         settings = dataclasses.replace(settings, distances_m=tuple(
             float(x) * layout.machine.diameter_m for x in config["distances_in_diameters"]))
+    t0 = time.perf_counter()
     ds = reach_study(layout, settings)
     return {"case": case, "relative_response": ds["relative_response"].values,
             "detectable_ahead_m": ds["detectable_ahead_m"].values,
-            "reach_m": float(ds["reach_m"]), "distance_ahead": ds["distance_ahead"].values}
+            "reach_m": float(ds["reach_m"]), "distance_ahead": ds["distance_ahead"].values,
+            "reach_at_grid_end": bool(ds["reach_at_grid_end"]),
+            "task_s": time.perf_counter() - t0, "pid": os.getpid(),
+            "peak_rss_mb": _peak_rss_mb()}
+
+
+def _peak_rss_mb() -> float:
+    """Peak resident memory of this process, MB (NaN where unknown)."""
+    try:
+        import resource
+    except ImportError:  # pragma: no cover - not on POSIX
+        return float("nan")
+    return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0
 
 
 def run_sweep(layout: Layout, sweep: Mapping[str, Sequence[float]], settings: ReachSettings, *,
@@ -363,9 +427,15 @@ def run_sweep(layout: Layout, sweep: Mapping[str, Sequence[float]], settings: Re
     det = np.empty((len(cases), nq))
     rel = np.empty((len(cases), nq, nd))
     dist = np.empty((len(cases), nd))
+    at_end = np.empty(len(cases), bool)
+    task_s = np.empty(len(cases))
+    rss = np.empty(len(cases))
+    pid = np.empty(len(cases), np.int64)
     for i, r in enumerate(results):
         reach[i], det[i], rel[i], dist[i] = (r["reach_m"], r["detectable_ahead_m"],
                                              r["relative_response"], r["distance_ahead"])
+        at_end[i], task_s[i], rss[i], pid[i] = (r["reach_at_grid_end"], r["task_s"],
+                                                r["peak_rss_mb"], r["pid"])
     coords = {k: (k, np.asarray(v), {"units": _unit(k)}) for k, v in zip(names, values)}
     coords["measurement"] = np.arange(nq)
     ds = xr.Dataset(
@@ -377,6 +447,14 @@ def run_sweep(layout: Layout, sweep: Mapping[str, Sequence[float]], settings: Re
             "relative_response": ((*names, "measurement", "step"),
                                   rel.reshape(*shape, nq, nd), {"units": "1"}),
             "distance_ahead": ((*names, "step"), dist.reshape(*shape, nd), {"units": "m"}),
+            "reach_at_grid_end": (names, at_end.reshape(shape),
+                                  {"long_name": "reach is the grid's last distance (lower "
+                                                "bound)"}),
+            "task_time_s": (names, task_s.reshape(shape), {"units": "s"}),
+            "worker_peak_rss_mb": (names, rss.reshape(shape),
+                                   {"units": "MB", "long_name": "peak resident memory of the "
+                                                                "process that ran the case"}),
+            "worker_pid": (names, pid.reshape(shape)),
         },
         coords=coords,
     )
@@ -451,8 +529,35 @@ def load_sweep(path: str | Path) -> tuple[dict[str, list[float]], dict[str, Any]
     return out, dict(data.get("options", {}))
 
 
+MODEL_SETTINGS_CHOICES = ("fast", "standard")
+
+
+def model_options_for(model: str, choice: str = "fast") -> dict[str, Any]:
+    """Forward-model options for a named accuracy choice.
+
+    ``fast`` (CLI default) is :meth:`tbminv.axisym.AxisymSettings.fast` (coarser mesh, fewer
+    harmonics, about 0.6 % from a fine reference on the demo layout, bench/results/axisym.json);
+    ``standard`` is the model's defaults (about 0.3 %, 2-3x slower). Models other than
+    ``axisym`` take no options here.
+    """
+    if choice not in MODEL_SETTINGS_CHOICES:
+        raise ValueError(f"model settings {choice!r}: expected one of "
+                         f"{', '.join(MODEL_SETTINGS_CHOICES)}")
+    if model != "axisym" or choice == "standard":
+        return {}
+    from tbminv.axisym import AxisymSettings
+
+    return {"settings": AxisymSettings.fast()}
+
+
 def run_reach_cli(args: Any) -> int:
-    """``tbminv reach``: one layout (``DIR/reach.nc`` + figures) or a sweep (``DIR/sweep.nc``)."""
+    """``tbminv reach``: one layout (``DIR/reach.nc`` + figures) or a sweep (``DIR/sweep.nc``).
+
+    ``args`` attributes: ``layout``, ``out``, ``contrast``, ``noise_rel``, ``noise_abs``,
+    ``sweep``, ``scheduler``; optional ``model`` (default ``axisym``), ``model_settings``
+    (``fast`` default / ``standard``, see :func:`model_options_for`), ``k`` (default 3),
+    ``target`` (``contact`` / ``sphere``), ``workers`` (LocalCluster size for sweeps).
+    """
     from tbminv.cache import atomic_path
     from tbminv.figures import save_figure
     from tbminv.layout import load_layout
@@ -461,32 +566,69 @@ def run_reach_cli(args: Any) -> int:
     layout = load_layout(args.layout)
     out = Path(args.out)
     out.mkdir(parents=True, exist_ok=True)
+    model = getattr(args, "model", None) or "axisym"
+    choice = getattr(args, "model_settings", None) or "fast"
     settings = ReachSettings(contrast=args.contrast, noise_rel=args.noise_rel,
-                             noise_abs_v=args.noise_abs,
-                             model=getattr(args, "model", None) or "axisym")
-    if args.sweep:
+                             noise_abs_v=args.noise_abs, model=model,
+                             k=float(getattr(args, "k", None) or 3.0),
+                             target=getattr(args, "target", None) or "contact")
+    if getattr(args, "sweep", None):
         sweep, opts = load_sweep(args.sweep)
+        known = ("k", "model", "target", "background_ohmm", "length", "distances_in_diameters",
+                 "model_settings", "sphere_radius_m")
+        for key in opts:
+            if key not in known:
+                raise ValueError(f"{args.sweep}: [options] {key}: unknown option; expected one "
+                                 f"of {', '.join(known)}")
         settings = dataclasses.replace(settings, **{k: opts[k] for k in
-                                                    ("k", "model", "target", "background_ohmm")
+                                                    ("k", "model", "target", "background_ohmm",
+                                                     "sphere_radius_m")
                                                     if k in opts})
-        ds = run_sweep(layout, sweep, settings, length=opts.get("length", "fixed"),
-                       distances_in_diameters=opts.get("distances_in_diameters"),
-                       scheduler=args.scheduler)
+        choice = str(opts.get("model_settings", choice))
+        settings = dataclasses.replace(settings,
+                                       model_options=model_options_for(settings.model, choice))
+        client = None
+        own: list[Any] = []
+        workers = getattr(args, "workers", None)
+        if workers and not args.scheduler:
+            from dask.distributed import Client, LocalCluster
+
+            cluster = LocalCluster(n_workers=int(workers), threads_per_worker=1, processes=True,
+                                   dashboard_address=None,
+                                   env={"TBMINV_THREADS": "1", "OMP_NUM_THREADS": "1"})
+            client = Client(cluster)
+            own = [client, cluster]
+        try:
+            ds = run_sweep(layout, sweep, settings, length=opts.get("length", "fixed"),
+                           distances_in_diameters=opts.get("distances_in_diameters"),
+                           scheduler=args.scheduler, client=client)
+        finally:
+            for obj in own:
+                obj.close()
+        ds.attrs["model_settings"] = choice
         path = out / "sweep.nc"
         with atomic_path(path) as tmp:
             ds.to_netcdf(tmp, engine="h5netcdf")
         print(f"sweep of {int(np.prod([ds.sizes[d] for d in ds['reach_m'].dims]))} cases "
+              f"({settings.model}, {choice} settings) in {ds.attrs['wall_time_s']:.0f} s "
               f"-> {path}")
         for p in save_figure(plot_reach_map(ds), out / "reach_map"):
             print(f"figure -> {p}")
         return 0
+    settings = dataclasses.replace(settings, model_options=model_options_for(model, choice))
     ds = reach_study(layout, settings)
+    ds.attrs["model_settings"] = choice
     path = out / "reach.nc"
     with atomic_path(path) as tmp:
         ds.to_netcdf(tmp, engine="h5netcdf")
-    print(f"reach of {layout.name or args.layout}: {float(ds['reach_m']):.1f} m ahead "
-          f"({float(ds['reach_m']) / layout.machine.diameter_m:.1f} D) for contrast "
-          f"{settings.contrast:g} at {100 * settings.noise_rel:g} % noise, k = {settings.k:g}")
+    reach = float(ds["reach_m"])
+    bound = ">= " if bool(ds["reach_at_grid_end"]) else ""
+    print(f"reach of {layout.name or args.layout}: {bound}{reach:.1f} m ahead "
+          f"({bound}{reach / layout.machine.diameter_m:.1f} D) for contrast "
+          f"{settings.contrast:g} at {100 * settings.noise_rel:g} % noise, k = {settings.k:g} "
+          f"({model}, {choice} settings)")
+    if bound:
+        print("  (the change is still seen at the last distance of the grid)")
     for b in best_measurements(ds, 5):
         print(f"  {b['a']} {b['b']} {b['m']} {b['n']}: {b['detectable_ahead_m']:.1f} m")
     print(f"dataset -> {path}")
@@ -497,4 +639,5 @@ def run_reach_cli(args: Any) -> int:
 
 __all__ = ["ReachSettings", "response_vs_distance", "detectability", "reach_study",
            "best_measurements", "run_sweep", "scale_layout", "load_sweep", "target_scenario",
-           "default_face_chainage", "run_reach_cli", "SWEEP_PARAMETERS"]
+           "default_face_chainage", "run_reach_cli", "reading_family", "SWEEP_PARAMETERS",
+           "model_options_for", "MODEL_SETTINGS_CHOICES"]

@@ -88,3 +88,81 @@ def test_scale_layout_keeps_skin_offsets():
     assert big.electrode("C1").radius_m == pytest.approx(0.8)
     fixed = scale_layout(layout, 12.4, length="fixed")
     assert fixed.machine.shield_length_m == pytest.approx(9.5)
+
+
+def test_scale_layout_proportional_scales_walls_about_the_face():
+    from tbminv.layout import demo_layout_path, load_layout
+    from tbminv.reach import default_face_chainage
+
+    layout = load_layout(demo_layout_path())
+    face = default_face_chainage(layout)
+    big = scale_layout(layout, 12.4, length="proportional", face_chainage_m=face)
+    # W1 is 15 m behind the face of the 6.2 m machine: 30 m behind for twice the diameter
+    assert big.electrode("W1").chainage_m == pytest.approx(face - 30.0)
+    assert big.electrode("S5").axial_m == pytest.approx(-16.0)
+
+
+def test_demo_sweep_file_reads():
+    from importlib.resources import files
+
+    from tbminv.reach import load_sweep
+
+    sweep, opts = load_sweep(files("tbminv") / "data" / "demo_sweep.toml")
+    assert sweep == {"diameter_m": [4.0, 6.0, 8.0, 10.0], "contrast": [0.1, 10.0]}
+    assert opts["length"] in ("fixed", "proportional") and opts["model_settings"] == "fast"
+
+
+def _reduced_demo_toml(tmp_path):
+    import tomli_w
+
+    from tbminv.layout import demo_layout_path, load_layout
+
+    d = load_layout(demo_layout_path()).to_dict()
+    d.pop("protocol", None)
+    path = tmp_path / "layout.toml"
+    path.write_text(tomli_w.dumps(d), encoding="utf-8")
+    return path
+
+
+def _cli_args(layout, out, **kw):
+    import argparse
+
+    base = {"layout": str(layout), "out": str(out), "contrast": 10.0, "noise_rel": 0.02,
+            "noise_abs": 0.0, "sweep": None, "scheduler": None}
+    base.update(kw)
+    return argparse.Namespace(**base)
+
+
+def test_cli_single_layout_writes_dataset_and_figure(tmp_path, capsys):
+    import xarray as xr
+
+    from tbminv.reach import run_reach_cli
+
+    layout = _reduced_demo_toml(tmp_path)
+    assert run_reach_cli(_cli_args(layout, tmp_path / "out")) == 0
+    ds = xr.load_dataset(tmp_path / "out" / "reach.nc")
+    assert ds.relative_response.dims == ("measurement", "distance_ahead")
+    assert ds.detectable_ahead_m.dims == ("measurement",)
+    assert list(ds.a.values) == ["M0"] * 5 + ["C1"] and list(ds.m.values)[:2] == ["C1", "C4"]
+    assert ds.reach_m.dims == () and float(ds.reach_m) > 0
+    assert (ds.detectable_ahead_m.values >= 0).all()
+    assert ds.attrs["model_settings"] == "fast"
+    for ext in ("pdf", "png"):
+        assert (tmp_path / "out" / f"reach.{ext}").stat().st_size > 1000
+    assert "reach of" in capsys.readouterr().out
+
+
+@pytest.mark.slow
+def test_cli_sweep_writes_dataset_and_map(tmp_path):
+    import xarray as xr
+
+    from tbminv.reach import run_reach_cli
+
+    layout = _reduced_demo_toml(tmp_path)
+    sweep = tmp_path / "sweep.toml"
+    sweep.write_text('[sweep]\ndiameter_m = [4.0, 8.0]\n[options]\nlength = "proportional"\n'
+                     'distances_in_diameters = [0.5, 1.0, 2.0, 4.0]\n', encoding="utf-8")
+    assert run_reach_cli(_cli_args(layout, tmp_path / "out", sweep=str(sweep), workers=2)) == 0
+    ds = xr.load_dataset(tmp_path / "out" / "sweep.nc")
+    assert ds.reach_m.dims == ("diameter_m",)
+    assert (tmp_path / "out" / "reach_map.png").exists()
