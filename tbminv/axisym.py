@@ -477,7 +477,8 @@ class AxisymForward:
         pts = sorted({(e.x_m, e.r_m) for e in electrodes if e.is_point})
         self.mesh = build_cylmesh(pts, self.geometry, s.mesh, extra_x=extra_x, extra_r=extra_r)
         self._x0 = self.mesh.x.copy()
-        kx = [p[0] for p in pts] + list(extra_x) + [0.0, self._x0[0], self._x0[-1]]
+        kx = ([p[0] for p in pts] + [e[0] if isinstance(e, tuple) else e for e in extra_x]
+              + [0.0, self._x0[0], self._x0[-1]])
         if self.geometry.has_machine:
             kx += [-self.geometry.shield_length_m, -0.5 * self.geometry.shield_length_m]
         if self.geometry.bore_radius_m is not None:
@@ -1062,8 +1063,8 @@ class LayoutAxisym:
 
     def __init__(self, layout: Any, cutterhead_deg: float = 0.0,
                  face_chainage_m: float | None = None, settings: AxisymSettings | None = None,
-                 extra_x: Sequence[float] = (), measurements: Sequence[Any] | None = None
-                 ) -> None:
+                 extra_x: Sequence[Any] = (), measurements: Sequence[Any] | None = None,
+                 extra_r: Sequence[Any] = ()) -> None:
         self.layout = layout
         self.cutterhead_deg = float(cutterhead_deg)
         self.face_chainage_m = face_chainage_m
@@ -1112,7 +1113,8 @@ class LayoutAxisym:
         self.forward = AxisymForward(
             els, srcs, recs, geo, self.settings,
             steel_resistivity_ohmm=mach.body_resistivity_ohmm,
-            tunnel_resistivity_ohmm=tun.lining_resistivity_ohmm, extra_x=extra_x)
+            tunnel_resistivity_ohmm=tun.lining_resistivity_ohmm, extra_x=extra_x,
+            extra_r=extra_r)
         self.pairs = sorted({(s_, k) for t in self.terms for _, s_, k in t})
         self._pair_index = {p: i for i, p in enumerate(self.pairs)}
 

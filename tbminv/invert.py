@@ -380,8 +380,8 @@ def advance_data(qc_table: pd.DataFrame, layout: Layout) -> list[AdvanceData]:
     quads = layout.measurements
     index: dict[tuple, tuple[int, bool]] = {}
     for i, q in enumerate(quads):
-        index[_key(q)] = (i, False)
-        index.setdefault(_key(q.reciprocal()), (i, True))
+        index[_fix_key(q, layout)] = (i, False)
+        index.setdefault(_fix_key(q.reciprocal(), layout), (i, True))
     out = []
     unknown = 0
     for adv, grp in qc_table.groupby("advance", sort=True):
@@ -431,10 +431,6 @@ def _norm(label: Any, layout: Layout) -> str | None:
     return None if lab == "" or layout.electrode(lab).at_infinity else lab
 
 
-def _key(q: Measurement) -> tuple:
-    return tuple(None if (x is None) else x for x in q.labels())
-
-
 # ------------------------------------------------------------------------ operator
 def _fix_key(q: Measurement, layout: Layout) -> tuple:
     return tuple(None if (x is None or layout.electrode(x).at_infinity) else x
@@ -458,8 +454,12 @@ class DriveOperator:
         from tbminv.axisym import LayoutAxisym
 
         # an instance of our own: filling a scenario moves grid lines of a shared model
+        # the forward mesh carries every parameter-grid line (with the parameter cell size as
+        # its local spacing), so that each parameter cell is a union of forward cells
         self.fwd = LayoutAxisym(layout, cutterhead_deg, face_chainage_m,
-                                getattr(model, "settings", None))
+                                getattr(model, "settings", None),
+                                extra_x=_keypoints(grid.x_nodes),
+                                extra_r=_keypoints(grid.r_nodes)[1:])
         c = self.fwd.forward.ground_centers()
         p = grid.locate(c[:, 0], c[:, 1])
         if np.any(p < 0):
@@ -467,6 +467,10 @@ class DriveOperator:
                                  "parameter grid: enlarge the parameter domain")
         self.P = sp.csr_matrix((np.ones(p.size), (np.arange(p.size), p)),
                                shape=(p.size, grid.n_param))
+        empty = np.asarray(self.P.sum(axis=0)).ravel() == 0
+        if empty.any():
+            raise InversionError(f"{int(empty.sum())} parameter cells hold no forward cell; "
+                                 "the forward mesh must follow the parameter grid")
         self.n_calls = 0
 
     def response(self, rho_param: np.ndarray, cutterhead_deg: float | None = None) -> np.ndarray:
@@ -484,6 +488,13 @@ class DriveOperator:
                                  else cutterhead_deg)
         return r, np.asarray(sp.csr_matrix(j).dot(self.P).toarray()
                              if sp.issparse(j) else j @ self.P)
+
+
+def _keypoints(nodes: np.ndarray) -> list[tuple[float, float]]:
+    """Grid lines as mesh key points (coordinate, local spacing = smaller adjacent cell)."""
+    d = np.diff(nodes)
+    h = np.minimum(np.r_[d[0], d], np.r_[d, d[-1]])
+    return [(float(x), float(hh)) for x, hh in zip(nodes, h)]
 
 
 def make_pg_modelling(op: DriveOperator, sel: np.ndarray, k: np.ndarray,
@@ -694,9 +705,12 @@ class DriveInverter:
         from tbminv.contactfit import ContactFitter, build_response_table
 
         if self._fitter is None:
-            table = build_response_table(self._machine_only_layout(), self.model,
-                                         rho_ref_ohmm=rho_ref, settings=self.settings.contact,
-                                         model_name="axisym")
+            from tbminv.models import make_model
+
+            sub = self._machine_only_layout()
+            model = make_model("axisym", sub, settings=getattr(self.model, "settings", None))
+            table = build_response_table(sub, model, rho_ref_ohmm=rho_ref,
+                                         settings=self.settings.contact, model_name="axisym")
             self._fitter = ContactFitter(table, self.settings.contact)
         return self._fitter
 
