@@ -64,6 +64,11 @@ class ContactFitSettings:
         Points of the interpolated distance grid.
     fine_contrasts : int
         Points of the interpolated contrast grid.
+    shared_resistivity : bool
+        One resistivity around the machine for all advances of the window (the machine moves
+        through the same ground until it reaches the contact). With the steel in, every pole
+        reading responds alike to a contact ahead, so one advance alone cannot tell a contact
+        from a change of the ground around the machine; a shared value breaks that trade-off.
     """
 
     contrasts: tuple[float, ...] = (0.05, 0.1, 0.25, 0.5, 1.0, 2.0, 4.0, 10.0, 20.0)
@@ -74,6 +79,7 @@ class ContactFitSettings:
     window: int = 30
     fine_distances: int = 240
     fine_contrasts: int = 81
+    shared_resistivity: bool = True
 
 
 @dataclass
@@ -178,6 +184,7 @@ class Likelihood:
     chi2_homogeneous: float
     log_rho1_homogeneous: float
     n_data: int
+    weight: float = 0.0       # sum of the data weights: chi2 grows by weight * (dlog rho1)^2
 
 
 @dataclass
@@ -258,7 +265,8 @@ class ContactFitter:
         chi2 = (w * (resid - lr[..., None]) ** 2).sum(-1)
         lr0 = float((y * w).sum() / w.sum())
         chi2_0 = float((w * (y - lr0) ** 2).sum())
-        return Likelihood(self.fine_c, self.fine_d, chi2, lr, chi2_0, lr0, int(ok.sum()))
+        return Likelihood(self.fine_c, self.fine_d, chi2, lr, chi2_0, lr0, int(ok.sum()),
+                          float(w.sum()))
 
     def estimate(self, likelihoods: Sequence[Likelihood], faces_m: Sequence[float]
                  ) -> ContactEstimate:
@@ -274,6 +282,11 @@ class ContactFitter:
         total = np.zeros((nc, x_grid.size))
         total0 = 0.0
         n_data = 0
+        shared = self.settings.shared_resistivity
+        acc_w = np.zeros((nc, x_grid.size))
+        acc_wl = np.zeros((nc, x_grid.size))
+        acc_wll = np.zeros((nc, x_grid.size))
+        w0 = wl0 = wll0 = 0.0
         for lik, f in zip(likelihoods, faces):
             dist = x_grid - f                         # distance ahead of that advance's face
             n_data += lik.n_data
@@ -285,10 +298,26 @@ class ContactFitter:
             hi = np.minimum(lo + 1, d.size - 1)
             t = idx - lo
             vals = lik.chi2[:, lo] * (1 - t) + lik.chi2[:, hi] * t
+            lrho = lik.log_rho1[:, lo] * (1 - t) + lik.log_rho1[:, hi] * t
             # beyond the table the contact is not seen: homogeneous misfit
-            vals[:, ~inside & (dist > dmax)] = lik.chi2_homogeneous
+            far = ~inside & (dist > dmax)
+            vals[:, far] = lik.chi2_homogeneous
+            lrho[:, far] = lik.log_rho1_homogeneous
             vals[:, ~inside & (dist < dmin)] = np.nan
             total += vals
+            if shared:
+                acc_w += lik.weight
+                acc_wl += lik.weight * lrho
+                acc_wll += lik.weight * lrho ** 2
+                w0 += lik.weight
+                wl0 += lik.weight * lik.log_rho1_homogeneous
+                wll0 += lik.weight * lik.log_rho1_homogeneous ** 2
+        if shared:
+            # one resistivity around the machine for the whole window: add the spread of the
+            # per-advance best values, sum_k W_k (L_k - L*)^2 with L* their weighted mean
+            with np.errstate(invalid="ignore", divide="ignore"):
+                total += np.maximum(acc_wll - acc_wl ** 2 / acc_w, 0.0)
+            total0 += max(wll0 - wl0 ** 2 / w0, 0.0) if w0 > 0 else 0.0
         total = np.where(np.isfinite(total), total, np.inf)
         c1 = int(np.argmin(np.abs(self.fine_c - 1.0)))
         total[c1, :] = total0
@@ -296,7 +325,7 @@ class ContactFitter:
         best = int(np.argmin(prof))
         chi2_min = float(prof[best])
         ci = int(np.argmin(total[:, best]))
-        n_par = 1 + 2 * len(likelihoods)
+        n_par = 2 + (1 if shared else len(likelihoods))
         dof = max(1, n_data - n_par)
         scale = max(1.0, chi2_min / dof)
         delta = float(chi2_dist.ppf(s.confidence, 1)) * scale
@@ -317,7 +346,8 @@ class ContactFitter:
         lo_m = float(x_grid[lo_i] - cur)
         hi_m = float(x_grid[hi_i] - cur) if hi_i < prof.size - 1 else math.nan
         contrast = float(self.fine_c[ci])
-        found = (p_hom < s.p_threshold) and abs(math.log(contrast)) > 1e-9 and math.isfinite(hi_m)
+        found = (p_hom < s.p_threshold and p_none < 0.5 and abs(math.log(contrast)) > 1e-9
+                 and math.isfinite(hi_m) and ahead < 0.8 * dmax)
         lik = likelihoods[-1]
         # rho1 of the current advance at the joint best contact
         dist_cur = float(np.clip(x_grid[best] - cur, dmin, dmax))

