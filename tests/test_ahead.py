@@ -85,46 +85,49 @@ needs_chain = pytest.mark.skipif(_missing("tbminv.invert") or _missing("tbminv.s
                                         "tbminv.invert")
 
 
-def _drive(tmp_path, ground_toml, noise_rel, seed):
-    """Simulate a drive (3D model) and invert it, through the command line of DESIGN 3.5."""
+def _drive(tmp_path, name):
+    """Invert a synthetic drive (made with the 3D model by tests/data/make_drive_fixtures.py,
+    no inverse crime) through the command line of DESIGN 3.5 and open the section store."""
     import subprocess
     import sys
+    from pathlib import Path
 
-    from tbminv.layout import demo_layout_path
     from tbminv.section import open_section
 
-    ground = tmp_path / "ground.toml"
-    ground.write_text(ground_toml)
-    readings, store = tmp_path / "readings.csv", tmp_path / "section.nc"
-    run = [sys.executable, "-m", "tbminv"]
-    subprocess.run(run + ["simulate", "--layout", str(demo_layout_path()), "--ground",
-                          str(ground), "--faces", "1200:1227:1.5", "--out", str(readings),
-                          "--model", "3d", "--noise-rel", str(noise_rel), "--seed", str(seed)],
-                   check=True, capture_output=True, timeout=3600)
-    subprocess.run(run + ["invert", str(readings), "--layout", str(demo_layout_path()),
-                          "--store", str(store)], check=True, capture_output=True, timeout=3600)
+    data = Path(__file__).parent / "data"
+    settings = tmp_path / "settings.toml"
+    # 21 reciprocal pairs per advance: one error model for the whole log
+    settings.write_text('[qc]\nerror_model_group = "log"\n'
+                        '[invert]\nforward_settings = "fast"\nmax_iter = 6\n')
+    store = tmp_path / "section.nc"
+    out = subprocess.run([sys.executable, "-m", "tbminv", "invert",
+                          str(data / f"drive_{name}.csv"), "--layout",
+                          str(data / "fixture_layout.toml"), "--store", str(store),
+                          "--settings", str(settings)],
+                         capture_output=True, text=True, timeout=3600)
+    assert out.returncode == 0, out.stderr[-3000:]
     return open_section(store)
 
 
 @pytest.mark.slow
 @needs_chain
-@pytest.mark.parametrize("beyond", [8.0, 800.0])
-def test_end_to_end_contact_reported_two_diameters_ahead(tmp_path, beyond):
-    # 10:1 and 1:10 contacts 30 m ahead of the first face, faces every 1.5 m; 2 % noise, seed 7
-    ds = _drive(tmp_path, "background_resistivity_ohmm = 80.0\n[[contact]]\n"
-                          f"chainage_m = 1230.0\nresistivity_ohmm = {beyond}\n", 0.02, 7)
+@pytest.mark.parametrize("name", ["contact10_seed11", "contact01_seed13"])
+def test_end_to_end_contact_reported_two_diameters_ahead(tmp_path, name):
+    # 10:1 and 1:10 contacts at chainage 30 m, 30 m ahead of the first face, faces every 1.5 m,
+    # D = 6 m; 3D-simulated, 2 % noise, seeds 11 and 13
+    ds = _drive(tmp_path, name)
     diam = float(ds.attrs["machine_diameter_m"])
-    early = ds["advance"].values[ds["face_chainage_m"].values <= 1230.0 - 2 * diam]
+    early = ds["advance"].values[ds["face_chainage_m"].values <= 30.0 - 2 * diam]
     s = detect_changes(ds.sel(advance=early))
     assert s.changes and s.changes[0].level in ("likely", "firm"), s.describe()
-    assert s.changes[0].chainage_m == pytest.approx(1230.0, abs=0.5 * diam)
+    assert s.changes[0].chainage_m == pytest.approx(30.0, abs=0.5 * diam)
 
 
 @pytest.mark.slow
 @needs_chain
 def test_end_to_end_homogeneous_drive_reports_nothing(tmp_path):
-    # homogeneous 80 ohm-m, 3 % noise, seed 11
-    ds = _drive(tmp_path, "background_resistivity_ohmm = 80.0\n", 0.03, 11)
+    # homogeneous 50 ohm-m, 3D-simulated, 3 % noise, seed 17
+    ds = _drive(tmp_path, "homogeneous3pc_seed17")
     s = detect_changes(ds)
     assert not s.changes, s.describe()
 

@@ -3,7 +3,8 @@
 Small layout (three cutterhead, three shield electrodes, the steel as a current electrode, a
 remote at infinity; pole-pole and machine-pole protocol with reciprocals), D = 6 m, deep tunnel.
 Drives: homogeneous 50 ohm-m (faces 0..12 m), and a contact square to the axis 30 m ahead of the
-first face with rho2/rho1 = 10 and 0.1 (faces 0..27 m every 1.5 m). 2 % relative noise, seeds
+first face with rho2/rho1 = 10 and 0.1 (faces 0..27 m every 1.5 m). 2 % relative noise (and a
+homogeneous drive with 3 %), seeds
 named in the file names. Run from the project root::
 
     python tests/data/make_drive_fixtures.py
@@ -12,6 +13,7 @@ named in the file names. Run from the project root::
 from __future__ import annotations
 
 import logging
+import sys
 from pathlib import Path
 
 import numpy as np
@@ -46,14 +48,19 @@ def main() -> None:
     layout = fixture_layout()
     layout.to_toml(HERE / "fixture_layout.toml")
     drives = {
-        "homogeneous_seed7": (Scenario.homogeneous(50.0), np.arange(0.0, 12.01, 1.5), 7),
+        "homogeneous_seed7": (Scenario.homogeneous(50.0), np.arange(0.0, 12.01, 1.5), 7, 0.02),
+        "homogeneous3pc_seed17": (Scenario.homogeneous(50.0), np.arange(0.0, 12.01, 1.5), 17,
+                                  0.03),
         "contact10_seed11": (Scenario(50.0, contacts=(Contact(30.0, 500.0),)),
-                             np.arange(0.0, 27.01, 1.5), 11),
+                             np.arange(0.0, 27.01, 1.5), 11, 0.02),
         "contact01_seed13": (Scenario(50.0, contacts=(Contact(30.0, 5.0),)),
-                             np.arange(0.0, 27.01, 1.5), 13),
+                             np.arange(0.0, 27.01, 1.5), 13, 0.02),
     }
-    for name, (sc, faces, seed) in drives.items():
-        df = simulate_drive(layout, sc, faces, model="3d", noise_rel=0.02, noise_abs_v=0.0,
+    only = set(sys.argv[1:])
+    for name, (sc, faces, seed, noise) in drives.items():
+        if only and name not in only:
+            continue
+        df = simulate_drive(layout, sc, faces, model="3d", noise_rel=noise, noise_abs_v=0.0,
                             seed=seed, current_a=1.0)
         write_readings(df, HERE / f"drive_{name}.csv")
         print(name, len(df))
