@@ -107,25 +107,25 @@ def cmd_check(args: argparse.Namespace) -> int:
 def cmd_invert(args: argparse.Namespace) -> int:
     """Run ``tbminv invert``."""
     inv = _module("invert", "invert")
-    return int(inv.run_invert_cli(args))
+    return int(inv.run_invert_cli(args, echo=print))
 
 
 def cmd_reach(args: argparse.Namespace) -> int:
     """Run ``tbminv reach``."""
     reach = _module("reach", "reach")
-    return int(reach.run_reach_cli(args))
+    return int(reach.run_reach_cli(args, echo=print))
 
 
 def cmd_report(args: argparse.Namespace) -> int:
     """Run ``tbminv report``."""
     report = _module("report", "report")
-    return int(report.run_report_cli(args))
+    return int(report.run_report_cli(args, echo=print))
 
 
 def cmd_demo(args: argparse.Namespace) -> int:
     """Run ``tbminv demo``: the whole chain on the bundled demo drive."""
     demo = _module("demo", "demo")
-    return int(demo.run_demo(Path(args.out)))
+    return int(demo.run_demo(Path(args.out), echo=print))
 
 
 def cmd_env(args: argparse.Namespace) -> int:
@@ -236,10 +236,12 @@ def main(argv: Sequence[str] | None = None) -> int:
     expected: tuple[type[BaseException], ...] = (CLIError, LayoutError, ScenarioError,
                                                  FileNotFoundError)
     try:
+        from tbminv.invert import InversionError
         from tbminv.qc import QCError
         from tbminv.readings import ReadingsError
+        from tbminv.section import SectionError
 
-        expected = (*expected, ReadingsError, QCError)
+        expected = (*expected, ReadingsError, QCError, SectionError, InversionError)
     except ImportError:
         pass
     try:

@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import importlib
 import logging
+from collections.abc import Callable
 from pathlib import Path
 
 from tbminv.ground import demo_ground_path
@@ -39,7 +40,7 @@ def _optional(name: str):  # noqa: ANN202 - module or None
         raise
 
 
-def run_demo(out_dir: Path) -> int:
+def run_demo(out_dir: Path, echo: Callable[[str], None] | None = None) -> int:
     """Run the demo chain into ``out_dir`` and print what was done and where it went.
 
     Returns
@@ -47,21 +48,22 @@ def run_demo(out_dir: Path) -> int:
     int
         0 if every available step succeeded.
     """
+    echo = echo or _LOG.info
     import tbminv
 
     out = Path(out_dir)
     out.mkdir(parents=True, exist_ok=True)
     layout = load_layout(demo_layout_path())
-    print(f"tbminv {tbminv.__version__} demo: {layout.name}")
-    print(f"  layout: {demo_layout_path()} ({len(layout.electrodes)} electrodes, "
+    echo(f"tbminv {tbminv.__version__} demo: {layout.name}")
+    echo(f"  layout: {demo_layout_path()} ({len(layout.electrodes)} electrodes, "
           f"{len(layout.measurements)} quadrupoles)")
-    print(f"  ground used to make the demo log: {demo_ground_path()}")
+    echo(f"  ground used to make the demo log: {demo_ground_path()}")
     readings = demo_readings_path()
     if not readings.exists():
-        print(f"  demo readings log missing ({readings}); regenerate it with "
+        echo(f"  demo readings log missing ({readings}); regenerate it with "
               "python scripts/make_demo_data.py")
         return 2
-    print(f"  readings log: {readings}")
+    echo(f"  readings log: {readings}")
     steps = (("check", "qc"), ("invert", "invert"), ("report", "report"))
     store = out / "section.nc"
     inv_settings = qc_settings = None
@@ -70,17 +72,17 @@ def run_demo(out_dir: Path) -> int:
         from tbminv.invert import load_settings
 
         inv_settings, qc_settings = load_settings(demo_settings_path())
-        print(f"  settings: {demo_settings_path()}")
+        echo(f"  settings: {demo_settings_path()}")
     for step, module in steps:
         mod = _optional(module)
         if mod is None:
-            print(f"  {step}: not available in this version (tbminv.{module} is not built yet); "
+            echo(f"  {step}: not available in this version (tbminv.{module} is not built yet); "
                   "the demo stops here")
             break
         if step == "check":
             result = mod.run_check(readings, layout, out / "check", qc_settings)
             for line in result.describe():
-                print(f"  check: {line}")
+                echo(f"  check: {line}")
             qc_summary = result.summary.get("qc")
             if not result.usable:
                 return 1
@@ -88,12 +90,12 @@ def run_demo(out_dir: Path) -> int:
             ds = mod.run_drive(readings, layout, store, settings=inv_settings,
                                qc_settings=qc_settings, out_dir=out / "invert",
                                layout_path=demo_layout_path(), progress=True)
-            print(f"  invert: {ds.sizes['advance']} advances -> section store {store}")
+            echo(f"  invert: {ds.sizes['advance']} advances -> section store {store}")
         else:
             paths = mod.write_report(store, out / "report", qc_summary=qc_summary)
             for p in paths:
-                print(f"  report: {p}")
-    print(tbminv.CAUTION)
+                echo(f"  report: {p}")
+    echo(tbminv.CAUTION)
     return 0
 
 

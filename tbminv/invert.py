@@ -36,7 +36,7 @@ import logging
 import math
 import time
 import tomllib
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -908,8 +908,9 @@ def _shift_label(data: Sequence[AdvanceData]) -> str:
     return f"advances-{data[0].advance}-{data[-1].advance}"
 
 
-def run_invert_cli(args: Any) -> int:
+def run_invert_cli(args: Any, echo: Callable[[str], None] | None = None) -> int:
     """``tbminv invert READINGS --layout L --store STORE [--settings S] [--cold]``."""
+    echo = echo or _LOG.info
     from tbminv.layout import load_layout
 
     layout = load_layout(args.layout)
@@ -921,16 +922,16 @@ def run_invert_cli(args: Any) -> int:
                    cold=args.cold, layout_path=args.layout, progress=True)
     n = ds.sizes["advance"]
     flagged = int((ds["fit_flag"].values != 0).sum()) if "fit_flag" in ds else 0
-    print(f"inverted {n} advances ({flagged} flagged) -> {args.store}")
+    echo(f"inverted {n} advances ({flagged} flagged) -> {args.store}")
     if "contact_ahead_m" in ds:
         last = ds.isel(advance=-1)
         d = float(last["contact_ahead_m"])
         if math.isfinite(d):
-            print(f"last advance: contact fitted {d:.1f} m ahead "
+            echo(f"last advance: contact fitted {d:.1f} m ahead "
                   f"[{float(last['contact_ahead_lo_m']):.1f}, "
                   f"{float(last['contact_ahead_hi_m']):.1f}] m")
         else:
-            print("last advance: no contact found within reach")
+            echo("last advance: no contact found within reach")
     return 0
 
 

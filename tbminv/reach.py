@@ -20,7 +20,7 @@ import logging
 import os
 import time
 import tomllib
-from collections.abc import Mapping, Sequence
+from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -550,7 +550,7 @@ def model_options_for(model: str, choice: str = "fast") -> dict[str, Any]:
     return {"settings": AxisymSettings.fast()}
 
 
-def run_reach_cli(args: Any) -> int:
+def run_reach_cli(args: Any, echo: Callable[[str], None] | None = None) -> int:
     """``tbminv reach``: one layout (``DIR/reach.nc`` + figures) or a sweep (``DIR/sweep.nc``).
 
     ``args`` attributes: ``layout``, ``out``, ``contrast``, ``noise_rel``, ``noise_abs``,
@@ -558,6 +558,7 @@ def run_reach_cli(args: Any) -> int:
     (``fast`` default / ``standard``, see :func:`model_options_for`), ``k`` (default 3),
     ``target`` (``contact`` / ``sphere``), ``workers`` (LocalCluster size for sweeps).
     """
+    echo = echo or _LOG.info
     from tbminv.cache import atomic_path
     from tbminv.figures import save_figure
     from tbminv.layout import load_layout
@@ -609,11 +610,11 @@ def run_reach_cli(args: Any) -> int:
         path = out / "sweep.nc"
         with atomic_path(path) as tmp:
             ds.to_netcdf(tmp, engine="h5netcdf")
-        print(f"sweep of {int(np.prod([ds.sizes[d] for d in ds['reach_m'].dims]))} cases "
+        echo(f"sweep of {int(np.prod([ds.sizes[d] for d in ds['reach_m'].dims]))} cases "
               f"({settings.model}, {choice} settings) in {ds.attrs['wall_time_s']:.0f} s "
               f"-> {path}")
         for p in save_figure(plot_reach_map(ds), out / "reach_map"):
-            print(f"figure -> {p}")
+            echo(f"figure -> {p}")
         return 0
     settings = dataclasses.replace(settings, model_options=model_options_for(model, choice))
     ds = reach_study(layout, settings)
@@ -623,17 +624,17 @@ def run_reach_cli(args: Any) -> int:
         ds.to_netcdf(tmp, engine="h5netcdf")
     reach = float(ds["reach_m"])
     bound = ">= " if bool(ds["reach_at_grid_end"]) else ""
-    print(f"reach of {layout.name or args.layout}: {bound}{reach:.1f} m ahead "
+    echo(f"reach of {layout.name or args.layout}: {bound}{reach:.1f} m ahead "
           f"({bound}{reach / layout.machine.diameter_m:.1f} D) for contrast "
           f"{settings.contrast:g} at {100 * settings.noise_rel:g} % noise, k = {settings.k:g} "
           f"({model}, {choice} settings)")
     if bound:
-        print("  (the change is still seen at the last distance of the grid)")
+        echo("  (the change is still seen at the last distance of the grid)")
     for b in best_measurements(ds, 5):
-        print(f"  {b['a']} {b['b']} {b['m']} {b['n']}: {b['detectable_ahead_m']:.1f} m")
-    print(f"dataset -> {path}")
+        echo(f"  {b['a']} {b['b']} {b['m']} {b['n']}: {b['detectable_ahead_m']:.1f} m")
+    echo(f"dataset -> {path}")
     for p in save_figure(plot_response_vs_distance(ds), out / "reach"):
-        print(f"figure -> {p}")
+        echo(f"figure -> {p}")
     return 0
 
 

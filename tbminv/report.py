@@ -13,9 +13,8 @@ import datetime as _dt
 import hashlib
 import json
 import logging
-import sys
 import textwrap
-from collections.abc import Mapping
+from collections.abc import Callable, Mapping
 from pathlib import Path
 from typing import Any
 
@@ -251,21 +250,22 @@ def write_report(store_path: str | Path, out_dir: str | Path,
     return written
 
 
-def run_report_cli(args: argparse.Namespace) -> int:
-    """``tbminv report STORE --out DIR``: write the report, print where each output went.
+def run_report_cli(args: argparse.Namespace, echo: Callable[[str], None] | None = None) -> int:
+    """``tbminv report STORE --out DIR``: write the report and say where each output went.
+
+    Lines for the user go to ``echo`` (the command line passes ``print``; the default logs them),
+    so the library itself never prints. A store that cannot be read raises
+    :class:`FileNotFoundError` or :class:`~tbminv.section.SectionError`, which the command line
+    reports with exit code 2.
 
     Returns
     -------
     int
-        0 on success, 2 when the store cannot be read.
+        0 on success.
     """
-    try:
-        paths = write_report(args.store, args.out, shift=getattr(args, "shift", None))
-    except (FileNotFoundError, SectionError) as exc:
-        print(f"tbminv report: {exc}", file=sys.stderr)
-        return 2
-    for p in paths:
-        print(f"wrote {p}")
+    echo = echo or _LOG.info
+    for p in write_report(args.store, args.out, shift=getattr(args, "shift", None)):
+        echo(f"wrote {p}")
     return 0
 
 

@@ -139,7 +139,7 @@ def test_cli_single_layout_writes_dataset_and_figure(tmp_path, capsys):
     from tbminv.reach import run_reach_cli
 
     layout = _reduced_demo_toml(tmp_path)
-    assert run_reach_cli(_cli_args(layout, tmp_path / "out")) == 0
+    assert run_reach_cli(_cli_args(layout, tmp_path / "out"), echo=print) == 0
     ds = xr.load_dataset(tmp_path / "out" / "reach.nc")
     assert ds.relative_response.dims == ("measurement", "distance_ahead")
     assert ds.detectable_ahead_m.dims == ("measurement",)

@@ -5,7 +5,6 @@ Invented sections (tests/test_section.make_results): plumbing tests only.
 
 from __future__ import annotations
 
-import argparse
 import re
 import shutil
 import subprocess
@@ -17,7 +16,7 @@ from test_section import make_section
 
 import tbminv
 from tbminv import figures
-from tbminv.report import run_report_cli, write_report
+from tbminv.report import write_report
 from tbminv.section import append_shift, open_section
 
 
@@ -64,12 +63,13 @@ def test_report_of_named_shift_and_cli(store, tmp_path, capsys):
     paths = write_report(store, tmp_path / "a", shift="day-1")
     text = _words(" ".join(p.extract_text() for p in PdfReader(paths[0]).pages))
     assert "shift day-1: advances 0-5" in text
-    rc = run_report_cli(argparse.Namespace(store=str(store), out=str(tmp_path / "cli")))
+    from tbminv.cli import main
+
+    rc = main(["report", str(store), "--out", str(tmp_path / "cli")])
     assert rc == 0
     out = capsys.readouterr().out
     assert "report_night-1.pdf" in out and out.count("wrote ") == len(paths)
-    rc = run_report_cli(argparse.Namespace(store=str(tmp_path / "none.nc"),
-                                           out=str(tmp_path / "x")))
+    rc = main(["report", str(tmp_path / "none.nc"), "--out", str(tmp_path / "x")])
     assert rc == 2
 
 
