@@ -358,33 +358,14 @@ def slab_contact(boundaries_m: Sequence[float], log_rho_slabs: Sequence[float],
 # ------------------------------------------------------------------------ (a) axisymmetric
 def drive_inverter(layout: Layout, settings: InversionSettings | None = None,
                    model: Any | None = None) -> Any:
-    """A :class:`tbminv.invert.DriveInverter` whose contact table uses the right sub-model.
+    """A :class:`tbminv.invert.DriveInverter` for a layout.
 
-    The contact fit tabulates the readings between electrodes that travel with the machine;
-    its response table is computed here with an ``axisym`` model built for that sub-protocol
-    (same model settings), so that the table and the data have the same readings also when the
-    protocol has wall electrodes or a remote at a position.
+    Its contact table uses the sub-protocol of the electrodes that travel with the machine, on a
+    model built for that sub-protocol.
     """
     from tbminv.invert import DriveInverter
 
-    class _Inverter(DriveInverter):
-        def contact_fitter(self, rho_ref: float) -> Any:
-            from tbminv.contactfit import ContactFitter, build_response_table
-            from tbminv.models import make_model
-
-            if self._fitter is None:
-                sub = self._machine_only_layout()
-                opts = {}
-                if getattr(self.model, "settings", None) is not None:
-                    opts["settings"] = self.model.settings
-                sub_model = make_model("axisym", sub, **opts)
-                table = build_response_table(sub, sub_model, rho_ref_ohmm=rho_ref,
-                                             settings=self.settings.contact,
-                                             model_name="axisym")
-                self._fitter = ContactFitter(table, self.settings.contact)
-            return self._fitter
-
-    return _Inverter(layout, settings, model=model)
+    return DriveInverter(layout, settings, model=model)
 
 
 def image_contact(res: Any, layout: Layout, *, ahead_max_m: float | None = None,
@@ -526,38 +507,19 @@ class Region3DSettings:
                              "max_iter >= 1")
 
 
-class _Forward3DAdapter:
-    """``response(scenario, face, angle)`` on :class:`tbminv.forward3d.Forward3D`."""
-
-    def __init__(self, layout: Layout, settings: Any) -> None:
-        from tbminv.forward3d import Forward3D
-
-        self.layout = layout
-        self.settings = settings
-        self._f = Forward3D(layout, settings)
-
-    def response(self, scenario: Scenario, face_chainage_m: float,
-                 cutterhead_deg: float = 0.0) -> np.ndarray:
-        return self._f.run(scenario, face_chainage_m, cutterhead_deg).r_ohm
-
-
 def model_3d(layout: Layout, *, p2: bool = False, mesh: Any | None = None,
              honour_contacts: bool = True) -> Any:
-    """The ``3d`` forward model with a small mesh (``make_model("3d", ...)`` if registered).
+    """The ``3d`` forward model (:class:`tbminv.models.Model3D`) with a small mesh.
 
-    Falls back to a thin adapter on :class:`tbminv.forward3d.Forward3D` where the registry's
-    ``3d`` entry is not built in this version. ``honour_contacts = False`` keeps one mesh for
-    every ground (contacts filled by cell centres).
+    ``honour_contacts = False`` keeps one mesh for every ground (contacts filled by cell
+    centres).
     """
     from tbminv.forward3d import ForwardSettings
-    from tbminv.models import ModelNotAvailable, make_model
+    from tbminv.models import make_model
 
     fs = ForwardSettings(p2=p2, mesh=mesh or coarse_mesh_settings(),
                          honour_contacts=honour_contacts)
-    try:
-        return make_model("3d", layout, settings=fs)
-    except (ModelNotAvailable, AttributeError, TypeError):
-        return _Forward3DAdapter(layout, fs)
+    return make_model("3d", layout, settings=fs)
 
 
 def slab_scenario(face_chainage_m: float, boundaries_m: Sequence[float], rho_around: float,
