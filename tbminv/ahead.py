@@ -11,7 +11,10 @@ Picks of successive advances are grouped by chainage (single linkage within
 ``chainage_tolerance_m``). A real contact stays at one chainage as the face approaches: the
 slope of pick chainage against face chainage is near 0. An artefact of the machine and the
 layout travels with the machine: the slope is near 1, and the group is rejected. Groups in
-between are kept at the lowest level of concern.
+between are kept at the lowest level of concern. The slope is a weighted least-squares fit, each
+pick weighted by its own stated uncertainty (1 / sigma^2, sigma from its interval): an early,
+far pick with a wide interval does not tip the slope of a contact that later, sharper picks
+hold at one chainage (a contact fit trades distance against contrast while the contact is far).
 
 Levels of concern (our own words, thresholds in :class:`AheadSettings`):
 
@@ -143,6 +146,18 @@ class Pick:
     resistivity_beyond_ohmm: float
     source: str
     p_no_contact: float = math.nan
+
+    @property
+    def sigma_m(self) -> float:
+        """Standard uncertainty of the pick chainage from its interval, m.
+
+        The interval is read as a 95 % one (half-width / 1.96); an interval open on one side
+        gives the distance ahead of the face as the uncertainty.
+        """
+        lo, hi = self.chainage_lo_m, self.chainage_hi_m
+        if math.isfinite(lo) and math.isfinite(hi) and hi > lo:
+            return (hi - lo) / (2.0 * 1.959964)
+        return max(abs(self.ahead_m), 1e-3)
 
     @property
     def ahead_m(self) -> float:
@@ -330,12 +345,25 @@ def _groups(picks: list[Pick], tol: float) -> list[list[Pick]]:
     return groups
 
 
-def _slope(g: list[Pick]) -> float:
+def _slope(g: list[Pick]) -> tuple[float, float]:
+    """Weighted slope of pick chainage against face chainage and its standard error.
+
+    Weights 1 / sigma^2 of the picks; the standard error is scaled by the reduced chi-squared
+    of the line where that exceeds 1 (scatter larger than the stated uncertainties).
+    """
     f = np.array([q.face_chainage_m for q in g])
     c = np.array([q.chainage_m for q in g])
-    if g and np.ptp(f) > 0:
-        return float(np.polyfit(f, c, 1)[0])
-    return math.nan
+    if len(g) < 2 or np.ptp(f) <= 0:
+        return math.nan, math.nan
+    w = 1.0 / np.array([q.sigma_m for q in g]) ** 2
+    fc = f - np.average(f, weights=w)
+    sxx = float((w * fc * fc).sum())
+    slope = float((w * fc * c).sum() / sxx)
+    if len(g) < 3:
+        return slope, math.nan
+    resid = c - np.average(c, weights=w) - slope * fc
+    chi2r = float((w * resid ** 2).sum()) / (len(g) - 2)
+    return slope, math.sqrt(max(chi2r, 1.0) / sxx)
 
 
 def detect_changes(ds: xr.Dataset, settings: AheadSettings | None = None) -> AheadSummary:
@@ -375,7 +403,7 @@ def detect_changes(ds: xr.Dataset, settings: AheadSettings | None = None) -> Ahe
     rejected: list[Change] = []
     passed: list[Change] = []
     for g in _groups(picks, tol):
-        slope = _slope(g) if len(g) > 1 else math.nan
+        slope, slope_se = _slope(g)
         ch = np.array([q.chainage_m for q in g])
         med = float(np.median(ch))
         lo = float(np.median([q.chainage_lo_m for q in g]))
@@ -389,7 +417,9 @@ def detect_changes(ds: xr.Dataset, settings: AheadSettings | None = None) -> Ahe
         beyond = float(np.median([q.resistivity_beyond_ohmm for q in g]))
         reasons = [f"{len(g)} of {len(window)} recent clean advances"]
         if math.isfinite(slope):
-            reasons.append(f"pick chainage moves {slope:+.2f} m per m of advance")
+            se = f" +/- {slope_se:.2f}" if math.isfinite(slope_se) else ""
+            reasons.append(f"pick chainage moves {slope:+.2f}{se} m per m of advance "
+                           "(weighted by the picks' uncertainties)")
         n = len(g)
         level = "watch"
         if math.isfinite(slope) and abs(slope) >= st.artefact_slope:
