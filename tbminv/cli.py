@@ -9,7 +9,7 @@ Commands (contract, see the shared design §3.5)::
                     [--scheduler ADDRESS]
     tbminv reach --layout L.toml --out DIR [--contrast C] [--noise-rel R] [--noise-abs V]
                     [--sweep SWEEP.toml] [--scheduler ADDRESS]
-    tbminv report STORE.nc --out DIR
+    tbminv report STORE.nc --out DIR [--settings S.toml] [--materials TABLE] [--shift LABEL]
     tbminv demo --out DIR
     tbminv env                      # environment report for bug reports
 
@@ -173,7 +173,9 @@ def build_parser() -> argparse.ArgumentParser:
     i.add_argument("--store", required=True, help="section store (NetCDF) to create or append")
     i.add_argument("--settings", default=None, help="settings file (TOML)")
     i.add_argument("--cold", action="store_true", help="cold-start every advance")
-    i.add_argument("--scheduler", default=None, help="dask scheduler address")
+    i.add_argument("--scheduler", default=None,
+                   help="dask scheduler address: run the cold-started advances (--cold) on its "
+                        "workers")
     i.set_defaults(func=cmd_invert)
 
     r = sub.add_parser("reach", help="how far ahead a layout sees a contrast")
@@ -200,6 +202,13 @@ def build_parser() -> argparse.ArgumentParser:
     rp = sub.add_parser("report", help="shift report from a section store")
     rp.add_argument("store", help="section store (NetCDF)")
     rp.add_argument("--out", required=True, help="output folder")
+    rp.add_argument("--settings", default=None,
+                    help="settings file (TOML) whose [ahead] table sets the levels of concern")
+    rp.add_argument("--materials", default=None,
+                    help="site-calibrated material table (TOML or CSV) instead of the handbook "
+                         "table")
+    rp.add_argument("--shift", default=None,
+                    help="shift to report (default: the shift of the last advance)")
     rp.set_defaults(func=cmd_report)
 
     d = sub.add_parser("demo", help="run the whole chain on the bundled demo drive")
@@ -236,12 +245,15 @@ def main(argv: Sequence[str] | None = None) -> int:
     expected: tuple[type[BaseException], ...] = (CLIError, LayoutError, ScenarioError,
                                                  FileNotFoundError)
     try:
+        from tbminv.ahead import AheadSettingsError
         from tbminv.invert import InversionError
+        from tbminv.materials import MaterialTableError
         from tbminv.qc import QCError
         from tbminv.readings import ReadingsError
         from tbminv.section import SectionError
 
-        expected = (*expected, ReadingsError, QCError, SectionError, InversionError)
+        expected = (*expected, ReadingsError, QCError, SectionError, InversionError,
+                    AheadSettingsError, MaterialTableError)
     except ImportError:
         pass
     try:

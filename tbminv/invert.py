@@ -93,6 +93,11 @@ class InversionSettings:
         chi-squared above which a result is flagged.
     warm_start : bool
         Start each advance from the previous (shifted) model.
+    time_lapse : bool
+        Also regularise towards the previous (shifted) model: the smoothness acts on the
+        change from that model (a difference-to-reference constraint in the spirit of
+        LaBrecque & Yang 2001), so consecutive advances differ only where the data ask for
+        it. Needs consecutive advances (not with ``--cold``). Default off.
     doi : bool
         Compute the depth-of-investigation index (three inversions per advance).
     contact_fit : bool
@@ -120,6 +125,7 @@ class InversionSettings:
     upper_ohmm: float = 1e5
     chi2_flag: float = 2.0
     warm_start: bool = True
+    time_lapse: bool = False
     doi: bool = False
     contact_fit: bool = True
     contact: ContactFitSettings = field(default_factory=ContactFitSettings)
@@ -534,9 +540,22 @@ class ImageResult:
 
 
 def invert_image(op: DriveOperator, data: AdvanceData, k: np.ndarray,
-                 settings: InversionSettings, start_model: np.ndarray | None = None
-                 ) -> ImageResult:
-    """Invert one advance's apparent resistivities on the parameter grid."""
+                 settings: InversionSettings, start_model: np.ndarray | None = None,
+                 reference_model: np.ndarray | None = None) -> ImageResult:
+    """Invert one advance's apparent resistivities on the parameter grid.
+
+    Parameters
+    ----------
+    op : DriveOperator
+    data : AdvanceData
+    k : ndarray
+        Geometric factors per protocol quadrupole, m.
+    settings : InversionSettings
+    start_model : ndarray, optional
+        Starting resistivity per parameter cell, ohm-m (default: median apparent resistivity).
+    reference_model : ndarray, optional
+        Regularise the change from this model (time-lapse mode); it is also the start.
+    """
     from tbminv.gimli import pg
 
     t0 = time.perf_counter()
@@ -568,11 +587,15 @@ def invert_image(op: DriveOperator, data: AdvanceData, k: np.ndarray,
                         dPhi=settings.min_dphi_percent, stopAtChi1=True, verbose=False, **kw)
         return inv, np.asarray(model, float)
 
+    ref = None
+    if reference_model is not None:
+        ref = np.clip(np.asarray(reference_model, float), settings.lower_ohmm * 1.01,
+                      settings.upper_ohmm * 0.99)
     if settings.lambda_rule == "lcurve":
         best = None
         pts = []
         for lam in settings.lcurve_lams:
-            inv, model = run(lam, 1.0, start_model, settings.max_iter)
+            inv, model = run(lam, 1.0, start_model, settings.max_iter, ref)
             rough = float(np.linalg.norm(np.asarray(inv.fop.constraints() *
                                                     pg.Vector(np.log(model)))))
             pts.append((lam, float(inv.chi2()), rough, inv, model))
@@ -583,7 +606,7 @@ def invert_image(op: DriveOperator, data: AdvanceData, k: np.ndarray,
         inv = best
     else:
         factor = settings.lambda_factor if settings.lambda_rule == "cooling" else 1.0
-        inv, model = run(settings.lam, factor, start_model, settings.max_iter)
+        inv, model = run(settings.lam, factor, start_model, settings.max_iter, ref)
         lam_used = float(inv.lam)
     chi2 = float(inv.chi2())
     hist = [float(v) for v in inv.chi2History]
@@ -731,40 +754,107 @@ class DriveInverter:
                      if all(x is None or x in moving for x in q.labels()))
         return dataclasses.replace(self.layout, explicit_measurements=keep, generators=())
 
+    def reference_resistivity(self, adv: AdvanceData) -> float:
+        """Reference resistivity of the drive (set once, from the first advance), ohm-m.
+
+        The median apparent resistivity of the advance with factors for 100 ohm-m, rounded to
+        two significant digits; the numeric geometric factors are computed for it.
+        """
+        if self.rho_ref_ohmm is None:
+            k0 = self.geometric_factors(adv.face_chainage_m, adv.cutterhead_deg, 100.0)
+            ra = k0 * adv.r_ohm
+            ok = np.isfinite(ra) & (ra > 0)
+            if not ok.any():
+                raise InversionError(f"advance {adv.advance}: no reading gives a positive "
+                                     "apparent resistivity")
+            self.rho_ref_ohmm = float(_round_sig(np.median(ra[ok])))
+        return self.rho_ref_ohmm
+
+    def invert_advance(self, adv: AdvanceData, start: np.ndarray | None = None,
+                       reference: np.ndarray | None = None) -> ImageResult:
+        """Image inversion of one advance (operator and factors from the caches)."""
+        op = self.operator(adv.face_chainage_m, adv.cutterhead_deg)
+        k = self.geometric_factors(adv.face_chainage_m, adv.cutterhead_deg,
+                                   self.reference_resistivity(adv))
+        img = invert_image(op, adv, k, self.settings, start, reference)
+        _LOG.info("advance %d at %.2f m: chi2 %.2f after %d iterations (%s), %.1f s",
+                  adv.advance, adv.face_chainage_m, img.chi2, img.iterations,
+                  img.stop_reason, img.time_s)
+        return img
+
     def run(self, data: Sequence[AdvanceData], *, cold: bool = False,
-            progress: bool = False) -> list[Any]:
-        """Invert every advance; return :class:`tbminv.section.AdvanceResult` objects."""
+            progress: bool = False, client: Any | None = None,
+            scheduler: str | None = None) -> list[Any]:
+        """Invert every advance; return :class:`tbminv.section.AdvanceResult` objects.
+
+        Parameters
+        ----------
+        data : sequence of AdvanceData
+            Advances in drive order.
+        cold : bool
+            Start every advance from a homogeneous model (advances become independent).
+        progress : bool
+            Show a progress bar per advance.
+        client : dask.distributed.Client, optional
+            Run the (cold, independent) image inversions on this client's workers.
+        scheduler : str, optional
+            Address of a dask scheduler to connect to instead of ``client``.
+        """
+        if not data:
+            return []
+        if self.settings.time_lapse and cold:
+            raise InversionError("[invert] time_lapse = true regularises each advance towards "
+                                 "the previous one: it cannot be combined with a cold start "
+                                 "(--cold)")
+        distributed = client is not None or bool(scheduler)
+        if distributed and not cold:
+            raise InversionError("--scheduler runs independent inversions: add --cold (the "
+                                 "warm start makes each advance wait for the previous one)")
+        self.reference_resistivity(data[0])
+        if distributed:
+            imgs = self._run_distributed(data, client, scheduler, progress)
+        else:
+            from tqdm.auto import tqdm
+
+            imgs = []
+            prev_model = prev_face = None
+            for adv in tqdm(data, disable=not progress, desc="advances", unit="advance"):
+                start = ref = None
+                if not cold and prev_model is not None and (self.settings.warm_start
+                                                            or self.settings.time_lapse):
+                    start = shift_model(self.grid, prev_model, adv.face_chainage_m - prev_face)
+                    ref = start if self.settings.time_lapse else None
+                img = self.invert_advance(adv, start, ref)
+                prev_model, prev_face = img.model_ohmm, adv.face_chainage_m
+                imgs.append(img)
+        contacts = self._contacts(data) if self.settings.contact_fit else [None] * len(data)
+        return [self._advance_result(adv, img, con)
+                for adv, img, con in zip(data, imgs, contacts)]
+
+    def _run_distributed(self, data: Sequence[AdvanceData], client: Any | None,
+                         scheduler: str | None, progress: bool) -> list[ImageResult]:
+        """Cold image inversions on dask workers (one inverter per worker process)."""
+        from dask.distributed import Client, as_completed
         from tqdm.auto import tqdm
 
-        results: list[Any] = []
-        prev_model = None
-        prev_face = None
-        images: list[tuple[AdvanceData, ImageResult]] = []
-        for adv in tqdm(data, disable=not progress, desc="advances", unit="advance"):
-            op = self.operator(adv.face_chainage_m, adv.cutterhead_deg)
-            if self.rho_ref_ohmm is None:
-                k0 = self.geometric_factors(adv.face_chainage_m, adv.cutterhead_deg, 100.0)
-                ra = k0 * adv.r_ohm
-                ok = np.isfinite(ra) & (ra > 0)
-                if not ok.any():
-                    raise InversionError(f"advance {adv.advance}: no reading gives a positive "
-                                         "apparent resistivity")
-                self.rho_ref_ohmm = float(_round_sig(np.median(ra[ok])))
-            k = self.geometric_factors(adv.face_chainage_m, adv.cutterhead_deg,
-                                       self.rho_ref_ohmm)
-            start = None
-            if self.settings.warm_start and not cold and prev_model is not None:
-                start = shift_model(self.grid, prev_model, adv.face_chainage_m - prev_face)
-            img = invert_image(op, adv, k, self.settings, start)
-            _LOG.info("advance %d at %.2f m: chi2 %.2f after %d iterations (%s), %.1f s",
-                      adv.advance, adv.face_chainage_m, img.chi2, img.iterations,
-                      img.stop_reason, img.time_s)
-            prev_model, prev_face = img.model_ohmm, adv.face_chainage_m
-            images.append((adv, img))
-        contacts = self._contacts(data) if self.settings.contact_fit else [None] * len(data)
-        for (adv, img), con in zip(images, contacts):
-            results.append(self._advance_result(adv, img, con))
-        return results
+        own = None
+        if client is None:
+            try:
+                client = own = Client(scheduler, timeout="30s")
+            except OSError as exc:
+                raise InversionError(f"--scheduler {scheduler}: cannot connect ({exc})") from None
+        try:
+            futures = [client.submit(_remote_image, self.layout, self.settings,
+                                     self.rho_ref_ohmm, adv, pure=False) for adv in data]
+            index = {f.key: i for i, f in enumerate(futures)}
+            out: list[Any] = [None] * len(data)
+            for fut in tqdm(as_completed(futures), total=len(futures), disable=not progress,
+                            desc="advances", unit="advance"):
+                out[index[fut.key]] = fut.result()
+            return out
+        finally:
+            if own is not None:
+                own.close()
 
     def _contacts(self, data: Sequence[AdvanceData]) -> list[Any]:
         from tbminv.section import ContactFit
@@ -842,6 +932,27 @@ class DriveInverter:
         return solid
 
 
+_WORKER_INVERTERS: dict[str, DriveInverter] = {}
+
+
+def _remote_image(layout: Layout, settings: InversionSettings, rho_ref_ohmm: float,
+                  adv: AdvanceData) -> ImageResult:
+    """Cold image inversion of one advance on a dask worker.
+
+    The worker keeps one :class:`DriveInverter` per layout and settings, so its mesh, operator
+    and factors are built once per worker, not once per advance.
+    """
+    from tbminv.cache import cache_key
+
+    key = cache_key({"layout": layout.to_dict(), "settings": settings.to_dict()})
+    inv = _WORKER_INVERTERS.get(key)
+    if inv is None:
+        _WORKER_INVERTERS.clear()
+        inv = _WORKER_INVERTERS[key] = DriveInverter(layout, settings)
+    inv.rho_ref_ohmm = rho_ref_ohmm
+    return inv.invert_advance(adv)
+
+
 def _round_sig(v: float, sig: int = 2) -> float:
     if v <= 0 or not math.isfinite(v):
         return 100.0
@@ -862,8 +973,12 @@ def file_sha256(path: str | Path) -> str:
 def run_drive(readings_path: str | Path, layout: Layout, store_path: str | Path, *,
               settings: InversionSettings | None = None, qc_settings: Any | None = None,
               out_dir: str | Path | None = None, cold: bool = False, shift: str | None = None,
-              layout_path: str | Path | None = None, progress: bool = False) -> Any:
+              layout_path: str | Path | None = None, progress: bool = False,
+              scheduler: str | None = None, client: Any | None = None) -> Any:
     """Check, invert and store a readings log (one shift) in the section store.
+
+    ``scheduler`` (a dask scheduler address) or ``client`` run the cold-started advances on
+    dask workers (``cold`` must be set).
 
     Returns
     -------
@@ -885,7 +1000,8 @@ def run_drive(readings_path: str | Path, layout: Layout, store_path: str | Path,
         raise InversionError(f"{readings_path}: no advance has three or more valid readings "
                              "with an error model (see `tbminv check`)")
     inverter = DriveInverter(layout, settings)
-    results = inverter.run(data, cold=cold, progress=progress)
+    results = inverter.run(data, cold=cold, progress=progress, scheduler=scheduler,
+                           client=client)
     layout_text = (Path(layout_path).read_text(encoding="utf-8") if layout_path
                    else _layout_text(layout))
     settings_text = repr(settings.to_dict())
@@ -913,13 +1029,14 @@ def run_invert_cli(args: Any, echo: Callable[[str], None] | None = None) -> int:
     echo = echo or _LOG.info
     from tbminv.layout import load_layout
 
+    if getattr(args, "scheduler", None) and not args.cold:
+        raise InversionError("--scheduler runs independent inversions: add --cold (the warm "
+                             "start makes each advance wait for the previous one)")
     layout = load_layout(args.layout)
     settings, qc = load_settings(args.settings)
-    if getattr(args, "scheduler", None):
-        _LOG.warning("--scheduler: the drive is inverted in this process (advances depend on "
-                     "each other through the warm start); use --cold to make them independent")
     ds = run_drive(args.readings, layout, args.store, settings=settings, qc_settings=qc,
-                   cold=args.cold, layout_path=args.layout, progress=True)
+                   cold=args.cold, layout_path=args.layout, progress=True,
+                   scheduler=getattr(args, "scheduler", None))
     n = ds.sizes["advance"]
     flagged = int((ds["fit_flag"].values != 0).sum()) if "fit_flag" in ds else 0
     echo(f"inverted {n} advances ({flagged} flagged) -> {args.store}")

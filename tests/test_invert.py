@@ -136,3 +136,78 @@ def test_warm_start_matches_cold_in_fewer_iterations(layout):
         rel = np.abs(w.resistivity_ohmm[ok] / c.resistivity_ohmm[ok] - 1.0)
         assert np.nanmax(rel) <= 0.05, np.nanmax(rel)
     assert sum(w.iterations for w in warm[1:]) <= sum(c.iterations for c in cold[1:])
+
+
+def test_time_lapse_needs_consecutive_advances(layout):
+    from tbminv.invert import InversionError
+
+    data = drive_data("homogeneous_seed7", layout)[:2]
+    inv = DriveInverter(layout, InversionSettings(time_lapse=True))
+    with pytest.raises(InversionError, match="time_lapse.*--cold"):
+        inv.run(data, cold=True)
+
+
+def test_scheduler_without_cold_is_refused_before_any_work(tmp_path):
+    import subprocess
+    import sys
+
+    store = tmp_path / "section.nc"
+    out = subprocess.run([sys.executable, "-m", "tbminv", "invert",
+                          str(DATA / "drive_homogeneous_seed7.csv"), "--layout",
+                          str(DATA / "fixture_layout.toml"), "--store", str(store),
+                          "--scheduler", "tcp://127.0.0.1:9"], capture_output=True, text=True,
+                         timeout=300)
+    assert out.returncode == 2, out.stderr[-2000:]
+    assert "--cold" in out.stderr and not store.exists()
+
+
+@pytest.mark.slow
+def test_cold_advances_on_dask_workers_equal_serial_run(layout, tmp_path):
+    # the same cold inversions in this process and on two worker processes of a dask cluster
+    # reached through the command line's --scheduler
+    import subprocess
+    import sys
+
+    from dask.distributed import LocalCluster
+
+    from tbminv.section import open_section
+
+    settings = tmp_path / "settings.toml"
+    settings.write_text('[qc]\nerror_model_group = "log"\n'
+                        '[invert]\nforward_settings = "fast"\nmax_iter = 4\ncontact_fit = false\n')
+    small = tmp_path / "drive.csv"
+    lines = (DATA / "drive_homogeneous_seed7.csv").read_text().splitlines()
+    small.write_text("\n".join([lines[0]] + [ln for ln in lines[1:]
+                                             if ln.split(",")[0] in ("1", "2", "3")]) + "\n")
+    stores = {}
+    with LocalCluster(n_workers=2, threads_per_worker=1, processes=True,
+                      dashboard_address=None,
+                      env={"TBMINV_THREADS": "1", "OMP_NUM_THREADS": "1"}) as cluster:
+        for mode, extra in (("serial", []), ("dask", ["--scheduler", cluster.scheduler_address])):
+            stores[mode] = tmp_path / f"{mode}.nc"
+            out = subprocess.run([sys.executable, "-m", "tbminv", "invert", str(small),
+                                  "--layout", str(DATA / "fixture_layout.toml"), "--store",
+                                  str(stores[mode]), "--settings", str(settings), "--cold",
+                                  *extra], capture_output=True, text=True, timeout=1800)
+            assert out.returncode == 0, out.stderr[-3000:]
+    a, b = open_section(stores["serial"]), open_section(stores["dask"])
+    assert a.sizes["advance"] == b.sizes["advance"] == 3
+    np.testing.assert_allclose(a["resistivity"].values, b["resistivity"].values, rtol=1e-6)
+    np.testing.assert_allclose(a["chi2"].values, b["chi2"].values, rtol=1e-6)
+
+
+@pytest.mark.slow
+def test_time_lapse_fits_the_data_and_agrees_with_warm_start(layout):
+    # time-lapse regularisation (difference to the shifted previous model) must fit as well as
+    # the independent warm-started inversion and stay within 5 % of it in the covered zone
+    data = drive_data("contact10_seed11", layout)[8:11]
+    warm = DriveInverter(layout, InversionSettings(contact_fit=False,
+                                                   forward_settings="fast")).run(data)
+    tl = DriveInverter(layout, InversionSettings(contact_fit=False, forward_settings="fast",
+                                                 time_lapse=True)).run(data)
+    for w, t in zip(warm, tl):
+        assert t.chi2 <= max(1.5, 1.2 * w.chi2), (t.chi2, w.chi2)
+        cov = w.coverage
+        ok = np.isfinite(cov) & (cov >= np.nanmax(cov) - 2.0)
+        ok &= np.isfinite(w.resistivity_ohmm) & np.isfinite(t.resistivity_ohmm)
+        assert np.nanmax(np.abs(t.resistivity_ohmm[ok] / w.resistivity_ohmm[ok] - 1.0)) <= 0.05
