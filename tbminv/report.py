@@ -251,7 +251,10 @@ def write_report(store_path: str | Path, out_dir: str | Path,
 
 
 def run_report_cli(args: argparse.Namespace, echo: Callable[[str], None] | None = None) -> int:
-    """``tbminv report STORE --out DIR``: write the report and say where each output went.
+    """``tbminv report STORE --out DIR [--settings S] [--materials T] [--shift L]``.
+
+    Writes the report and says where each output went. ``--settings`` gives the ``[ahead]``
+    thresholds, ``--materials`` a site-calibrated material table.
 
     Lines for the user go to ``echo`` (the command line passes ``print``; the default logs them),
     so the library itself never prints. A store that cannot be read raises
@@ -264,7 +267,15 @@ def run_report_cli(args: argparse.Namespace, echo: Callable[[str], None] | None 
         0 on success.
     """
     echo = echo or _LOG.info
-    for p in write_report(args.store, args.out, shift=getattr(args, "shift", None)):
+    ahead = table = None
+    if getattr(args, "settings", None):
+        ahead = AheadSettings.from_toml(args.settings)
+    if getattr(args, "materials", None):
+        from tbminv.materials import load_material_table
+
+        table = load_material_table(args.materials)
+    for p in write_report(args.store, args.out, shift=getattr(args, "shift", None),
+                          material_table=table, ahead_settings=ahead):
         echo(f"wrote {p}")
     return 0
 

@@ -98,3 +98,28 @@ def test_ahead_profile_band_contains_profile(store):
     assert np.all(p["hi_ohmm"][ok] >= p["resistivity_ohmm"][ok] * (1 - 1e-9))
     h = figures.chainage_history(ds, 1225.0)
     assert np.isfinite(h["resistivity_ohmm"]).sum() >= 10
+
+
+def test_report_cli_takes_ahead_settings_and_site_table(store, tmp_path, capsys):
+    from tbminv.cli import main
+
+    site = tmp_path / "site.csv"
+    site.write_text("# source: face probes, rings 10-40 (invented)\nname,low_ohmm,high_ohmm\n"
+                    "grey silt,5,30\nsand and gravel,60,400\n")
+    settings = tmp_path / "settings.toml"
+    settings.write_text("[ahead]\nfirm_advances = 50\n")   # 'firm' out of reach: 'likely'
+    rc = main(["report", str(store), "--out", str(tmp_path / "o"), "--settings", str(settings),
+               "--materials", str(site), "--shift", "day-1"])
+    assert rc == 0
+    pdf = next((tmp_path / "o").glob("*.pdf"))
+    text = _words(" ".join(p.extract_text() for p in PdfReader(pdf).pages))
+    assert "face probes, rings 10-40" in text and "grey silt" in text
+    assert "level of concern: likely" in text
+    settings.write_text("[ahead]\nfirm_advance = 5\n")
+    rc = main(["report", str(store), "--out", str(tmp_path / "p"), "--settings", str(settings)])
+    err = capsys.readouterr().err
+    assert rc == 2 and "firm_advance: unknown key" in err and str(settings) in err
+    site.write_text("name,low_ohmm,high_ohmm\nclay,abc,20\n")
+    rc = main(["report", str(store), "--out", str(tmp_path / "q"), "--materials", str(site)])
+    err = capsys.readouterr().err
+    assert rc == 2 and "low_ohmm" in err and str(site) in err
