@@ -1072,7 +1072,8 @@ class LayoutAxisym:
         if math.isfinite(tun.cover_m):
             _warn_once(("cover", layout.source, tun.cover_m),
                        "%s: the ground surface (cover %.1f m) is not axisymmetric; the "
-                       "axisymmetric model treats the ground as a full space",
+                       "axisymmetric model treats the ground as a full space (the drive "
+                       "inversion divides readings by a 3D surface factor, tbminv.surface)",
                        layout.source, tun.cover_m)
         geo = CylGeometry(
             machine_radius_m=mach.radius_m if mach.model_body else None,

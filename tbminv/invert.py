@@ -90,9 +90,16 @@ class InversionSettings:
     lower_ohmm, upper_ohmm : float
         Bounds of the log-bounded model transform, ohm-m.
     chi2_flag : float
-        chi-squared above which a result is flagged.
+        chi-squared above which a result is flagged. A result is also flagged when it did
+        not converge: ``max_iter`` reached while chi-squared still moved by more than
+        0.25 sqrt(2 / n) in the last iteration (n readings; sqrt(2 / n) is the scatter of
+        chi-squared per datum between noise realisations).
     warm_start : bool
         Start each advance from the previous (shifted) model.
+    surface_correction : bool
+        With a finite cover, divide each reading by the ratio of homogeneous 3D responses with
+        and without the ground surface (:mod:`tbminv.surface`) before the axisymmetric
+        inversion and contact fit. Default on; it costs two 3D runs per advance (cached).
     time_lapse : bool
         Also regularise towards the previous (shifted) model: the smoothness acts on the
         change from that model (a difference-to-reference constraint in the spirit of
@@ -125,6 +132,7 @@ class InversionSettings:
     upper_ohmm: float = 1e5
     chi2_flag: float = 2.0
     warm_start: bool = True
+    surface_correction: bool = True
     time_lapse: bool = False
     doi: bool = False
     contact_fit: bool = True
@@ -611,8 +619,15 @@ def invert_image(op: DriveOperator, data: AdvanceData, k: np.ndarray,
     chi2 = float(inv.chi2())
     hist = [float(v) for v in inv.chi2History]
     iters = max(0, len(hist) - 1)
+    # chi-squared per datum of n readings scatters by sqrt(2 / n) between noise realisations;
+    # a last step far below that cannot change the fit detectably: the fit has stagnated
+    step = abs(hist[-1] - hist[-2]) if len(hist) >= 2 else math.inf
+    still = 0.25 * math.sqrt(2.0 / max(int(sel.size), 1))
     if chi2 <= 1.0 + 1e-9:
         reason, converged = "chi-squared reached 1", True
+    elif iters >= settings.max_iter and step < still:
+        reason, converged = (f"chi-squared stagnated (last change {step:.3f} < {still:.3f})",
+                             chi2 <= settings.chi2_flag)
     elif iters >= settings.max_iter:
         reason, converged = f"iteration limit ({settings.max_iter})", False
     else:
@@ -770,6 +785,20 @@ class DriveInverter:
             self.rho_ref_ohmm = float(_round_sig(np.median(ra[ok])))
         return self.rho_ref_ohmm
 
+    def surface_corrected(self, adv: AdvanceData) -> AdvanceData:
+        """The advance's readings as the same ground would give them without the surface.
+
+        Unchanged for a deep tunnel (infinite cover) or with ``surface_correction`` off; else
+        divided by :func:`tbminv.surface.surface_factors` at the reference resistivity.
+        """
+        from tbminv.surface import needs_correction, surface_factors
+
+        if not (self.settings.surface_correction and needs_correction(self.layout)):
+            return adv
+        f = surface_factors(self.layout, adv.face_chainage_m, adv.cutterhead_deg,
+                            rho_ohmm=self.reference_resistivity(adv))
+        return dataclasses.replace(adv, r_ohm=adv.r_ohm / f)
+
     def invert_advance(self, adv: AdvanceData, start: np.ndarray | None = None,
                        reference: np.ndarray | None = None) -> ImageResult:
         """Image inversion of one advance (operator and factors from the caches)."""
@@ -811,6 +840,14 @@ class DriveInverter:
             raise InversionError("--scheduler runs independent inversions: add --cold (the "
                                  "warm start makes each advance wait for the previous one)")
         self.reference_resistivity(data[0])
+        from tbminv.surface import needs_correction
+
+        if self.settings.surface_correction and needs_correction(self.layout):
+            from tqdm.auto import tqdm
+
+            data = [self.surface_corrected(adv) for adv in
+                    tqdm(data, disable=not progress, desc="surface correction (3D)",
+                         unit="advance")]
         if distributed:
             imgs = self._run_distributed(data, client, scheduler, progress)
         else:

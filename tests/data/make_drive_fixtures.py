@@ -3,7 +3,9 @@
 Small layout (three cutterhead, three shield electrodes, the steel as a current electrode, a
 remote at infinity; pole-pole and machine-pole protocol with reciprocals), D = 6 m, deep tunnel.
 Drives: homogeneous 50 ohm-m (faces 0..12 m), and a contact square to the axis 30 m ahead of the
-first face with rho2/rho1 = 10 and 0.1 (faces 0..27 m every 1.5 m). 2 % relative noise (and a
+first face with rho2/rho1 = 10 and 0.1 (faces 0..27 m every 1.5 m). One more drive has a ground
+surface 12 m above the crown (layout fixture_layout_cover12.toml): contact 1:10 at 30 m, faces
+6..27 m every 3 m. 2 % relative noise (and a
 homogeneous drive with 3 %), seeds
 named in the file names. Run from the project root::
 
@@ -12,6 +14,7 @@ named in the file names. Run from the project root::
 
 from __future__ import annotations
 
+import dataclasses
 import logging
 import sys
 from pathlib import Path
@@ -57,10 +60,16 @@ def main() -> None:
                              np.arange(0.0, 27.01, 1.5), 13, 0.02),
     }
     only = set(sys.argv[1:])
+    shallow = dataclasses.replace(layout, tunnel=dataclasses.replace(layout.tunnel,
+                                                                     cover_m=12.0))
+    shallow.to_toml(HERE / "fixture_layout_cover12.toml")
+    drives["cover12_contact01_seed19"] = (Scenario(50.0, contacts=(Contact(30.0, 5.0),)),
+                                          np.arange(6.0, 27.01, 3.0), 19, 0.02)
     for name, (sc, faces, seed, noise) in drives.items():
         if only and name not in only:
             continue
-        df = simulate_drive(layout, sc, faces, model="3d", noise_rel=noise, noise_abs_v=0.0,
+        lay = shallow if name.startswith("cover12") else layout
+        df = simulate_drive(lay, sc, faces, model="3d", noise_rel=noise, noise_abs_v=0.0,
                             seed=seed, current_a=1.0)
         write_readings(df, HERE / f"drive_{name}.csv")
         print(name, len(df))

@@ -1,0 +1,89 @@
+"""Ratio correction of the ground surface (tbminv.surface).
+
+The correction factor f = R(with surface) / R(without) of a homogeneous ground is checked
+against the image method (one image source mirrored in the insulating surface; Telford,
+Geldart & Sheriff 1990, Applied Geophysics, sec. 8.3), and the corrected contact fit against
+a drive made with the 3D model under a surface 12 m above the crown (no inverse crime).
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import math
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+from tbminv.analytic import layout_response
+from tbminv.ground import Scenario
+from tbminv.layout import Layout, load_layout
+from tbminv.surface import needs_correction, surface_factors
+
+DATA = Path(__file__).parent / "data"
+D = 6.0
+
+
+def _point_layout(cover_m: float) -> Layout:
+    """No machine, no bore: electrodes are points in the ground (closed forms apply)."""
+    els = [{"label": "C1", "kind": "cutterhead", "axial_m": 0.05, "radius_m": 0.5,
+            "angle_deg": 0},
+           {"label": "C2", "kind": "cutterhead", "axial_m": 0.05, "radius_m": 2.0,
+            "angle_deg": 90},
+           {"label": "S1", "kind": "shield", "axial_m": -3.0, "radius_m": 3.1, "angle_deg": 0},
+           {"label": "S2", "kind": "shield", "axial_m": -8.0, "radius_m": 3.1,
+            "angle_deg": 180},
+           {"label": "W1", "kind": "wall", "chainage_m": 480.0, "radius_m": 3.1,
+            "angle_deg": 0},
+           {"label": "R1", "kind": "remote"}]
+    meas = [{"a": a, "b": "R1", "m": m, "n": "R1"}
+            for a in ("C1", "S1") for m in ("C2", "S2", "W1")]
+    meas += [{"a": "C1", "b": "S2", "m": "C2", "n": "S1"},
+             {"a": "S1", "b": "W1", "m": "C1", "n": "S2"}]
+    return Layout.from_dict({
+        "machine": {"diameter_m": D, "shield_length_m": 10.0, "cutterhead_thickness_m": 1.0,
+                    "model_body": False},
+        "tunnel": {"cover_m": cover_m, "model_cavity": False, "length_m": 30.0},
+        "electrode": els, "measurement": meas}, source="<surface test layout>")
+
+
+def test_deep_tunnel_needs_no_correction():
+    lay = load_layout(DATA / "fixture_layout.toml")
+    assert not needs_correction(lay)
+    assert np.all(surface_factors(lay, 0.0) == 1.0)
+
+
+@pytest.mark.slow
+def test_surface_factor_matches_image_method():
+    lay = _point_layout(cover_m=6.0)
+    deep = dataclasses.replace(lay, tunnel=dataclasses.replace(lay.tunnel, cover_m=math.inf))
+    sc = Scenario.homogeneous(40.0)
+    want = layout_response(lay, sc, 500.0) / layout_response(deep, sc, 500.0)
+    got = surface_factors(lay, 500.0, rho_ohmm=40.0, use_cache=False)
+    assert np.all(np.abs(want - 1.0) > 0.005) and want.max() > 1.5   # the surface matters
+    np.testing.assert_allclose(got, want, rtol=0.01)
+
+
+@pytest.mark.slow
+def test_corrected_contact_fit_under_a_surface():
+    # 1:10 contact at chainage 30 m, ground 50 ohm-m, surface 12 m above the crown (2 D), 3D
+    # model, 2 % noise, seed 19 (tests/data/make_drive_fixtures.py); faces 6..27 m every 3 m
+    from tbminv.invert import DriveInverter, InversionSettings, advance_data
+    from tbminv.qc import QCSettings, run_qc
+    from tbminv.readings import read_readings
+
+    lay = load_layout(DATA / "fixture_layout_cover12.toml")
+    readings = read_readings(DATA / "drive_cover12_contact01_seed19.csv", lay)
+    data = advance_data(run_qc(readings, QCSettings(error_model_group="log")).table, lay)
+    inv = DriveInverter(lay, InversionSettings(forward_settings="fast"))
+    inv.reference_resistivity(data[0])
+    use = [inv.surface_corrected(d) for d in data]
+    ratio = np.array([u.r_ohm / d.r_ohm for u, d in zip(use, data)])
+    assert np.nanmax(np.abs(ratio - 1.0)) > 0.01       # the surface is seen and removed
+    rows = [(d.face_chainage_m, c) for d, c in zip(data, inv._contacts(use))
+            if 30.0 - d.face_chainage_m <= 2 * D + 1e-9]
+    assert len(rows) >= 4
+    for f, c in rows:   # from 2 D ahead on: found, on the right side, within 0.5 D
+        assert c.found, (f, c)
+        assert c.resistivity_beyond_ohmm < c.resistivity_around_ohmm
+        assert abs(c.ahead_m - (30.0 - f)) <= 0.5 * D, (f, c.ahead_m)
