@@ -101,13 +101,13 @@ def run_ours(advances: list[int], time_lapse: bool) -> dict:
     total = time.perf_counter() - t0
     rows = [{"advance": r.advance, "face_chainage_m": r.face_chainage_m, "chi2": r.chi2,
              "iterations": r.iterations, "time_s": r.time_s} for r in res]
-    models = [_section_row(inv, r) for r in res]
+    models = [_section_row(r) for r in res]
     return {"method": "ours-timelapse" if time_lapse else "ours", "setup_s": t_setup,
             "total_s": total, "advances": rows, "solver_s": _SOLVER_S[0],
             "n_param": int(inv.grid.n_param), "models": models}
 
 
-def _section_row(inv, r) -> dict:
+def _section_row(r) -> dict:
     """Axial profile near the axis (ground frame) for the advance-to-advance comparison."""
     a, rad = r.ahead_m, r.radius_m
     rho = r.resistivity_ohmm

@@ -53,6 +53,10 @@ _LOG = logging.getLogger("tbminv.invert")
 LAMBDA_RULES = ("cooling", "fixed", "lcurve")
 
 
+SCHEDULER_NEEDS_COLD = ("--scheduler runs independent inversions: add --cold (the warm start "
+                        "makes each advance wait for the previous one)")
+
+
 class InversionError(ValueError):
     """Inversion input that cannot be used (the message names what and where)."""
 
@@ -837,22 +841,19 @@ class DriveInverter:
                                  "(--cold)")
         distributed = client is not None or bool(scheduler)
         if distributed and not cold:
-            raise InversionError("--scheduler runs independent inversions: add --cold (the "
-                                 "warm start makes each advance wait for the previous one)")
-        self.reference_resistivity(data[0])
+            raise InversionError(SCHEDULER_NEEDS_COLD)
+        from tqdm.auto import tqdm
+
         from tbminv.surface import needs_correction
 
+        self.reference_resistivity(data[0])
         if self.settings.surface_correction and needs_correction(self.layout):
-            from tqdm.auto import tqdm
-
             data = [self.surface_corrected(adv) for adv in
                     tqdm(data, disable=not progress, desc="surface correction (3D)",
                          unit="advance")]
         if distributed:
             imgs = self._run_distributed(data, client, scheduler, progress)
         else:
-            from tqdm.auto import tqdm
-
             imgs = []
             prev_model = prev_face = None
             for adv in tqdm(data, disable=not progress, desc="advances", unit="advance"):
@@ -1067,8 +1068,7 @@ def run_invert_cli(args: Any, echo: Callable[[str], None] | None = None) -> int:
     from tbminv.layout import load_layout
 
     if getattr(args, "scheduler", None) and not args.cold:
-        raise InversionError("--scheduler runs independent inversions: add --cold (the warm "
-                             "start makes each advance wait for the previous one)")
+        raise InversionError(SCHEDULER_NEEDS_COLD)
     layout = load_layout(args.layout)
     settings, qc = load_settings(args.settings)
     ds = run_drive(args.readings, layout, args.store, settings=settings, qc_settings=qc,

@@ -16,7 +16,8 @@ terrain effects in resistivity data (Fox, Hohmann, Killpack & Rijo 1980, Geophys
 75-93). It is exact for a homogeneous ground and first order for a ground that varies; it does
 not model what lies near the surface (a surface layer, buildings, services).
 
-Factors are cached on disk (:mod:`tbminv.cache`), keyed by layout, positions and settings.
+Factors are cached on disk (:mod:`tbminv.cache`), keyed by layout, cutterhead angle, settings and,
+where the layout has electrodes fixed in the ground, the face chainage.
 """
 
 from __future__ import annotations
@@ -73,10 +74,13 @@ def surface_factors(layout: Any, face_chainage_m: float, cutterhead_deg: float =
     from tbminv.ground import Scenario
 
     fs = settings or ForwardSettings()
+    # with every electrode travelling with the machine (or at infinity) the geometry under a
+    # surface parallel to the axis is the same at every face: one factor set serves the drive
+    fixed = any(e.fixed_in_ground for e in layout.electrodes)
     key = cache_key({"format": FORMAT, "layout": layout.to_dict(),
-                     "face": round(float(face_chainage_m), 6),
+                     "face": round(float(face_chainage_m), 6) if fixed else None,
                      "angle": round(float(cutterhead_deg), 6), "rho": float(rho_ohmm),
-                     "settings": _plain(fs)})
+                     "settings": dataclasses.asdict(fs)})
     path = cache_dir("surface") / f"{key}.json"
     if use_cache and path.exists():
         try:
@@ -103,12 +107,6 @@ def surface_factors(layout: Any, face_chainage_m: float, cutterhead_deg: float =
     if use_cache:
         atomic_write_text(path, json.dumps({"factors": f.tolist(), "key": key}))
     return f
-
-
-def _plain(obj: Any) -> Any:
-    if dataclasses.is_dataclass(obj):
-        return {k: _plain(v) for k, v in dataclasses.asdict(obj).items()}
-    return obj
 
 
 __all__ = ["needs_correction", "surface_factors"]
