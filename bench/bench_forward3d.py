@@ -72,9 +72,9 @@ def _quads():
 def run_case(level: str, p2: bool, body: bool) -> dict:
     import numpy as np
 
-    from tbminv.forward3d import Forward3D, ForwardSettings
+    from tbminv.forward.fem3d.mesh import MeshSettings, electrode_points
+    from tbminv.forward.fem3d.model import Forward3D, ForwardSettings
     from tbminv.ground import Scenario
-    from tbminv.mesh3d import MeshSettings, electrode_points
 
     os.environ["TBMINV_CACHE_DIR"] = os.environ.get("TBMINV_BENCH_CACHE", "/tmp/tbminv-bench")
     lay = _layout(body)

@@ -46,10 +46,10 @@ MAX_ITER = 8
 
 
 def _data(advances: list[int]):
-    from tbminv.invert import advance_data
     from tbminv.layout import load_layout
-    from tbminv.qc import QCSettings, run_qc
-    from tbminv.readings import read_readings
+    from tbminv.readings.advance import advance_data
+    from tbminv.readings.qc import QCSettings, run_qc
+    from tbminv.readings.reader import read_readings
 
     layout = load_layout(DATA / "fixture_layout.toml")
     readings = read_readings(DATA / f"drive_{DRIVE}.csv", layout)
@@ -67,7 +67,7 @@ def _time_solver() -> None:
     CHOLMOD's Cython functions are invisible to cProfile, so the factorisation and the returned
     solve callable are wrapped here.
     """
-    from tbminv import axisym
+    from tbminv.forward.axisym import layout as axisym
 
     orig = axisym.AxisymForward._factor
 
@@ -88,7 +88,8 @@ def _time_solver() -> None:
 
 
 def run_ours(advances: list[int], time_lapse: bool) -> dict:
-    from tbminv.invert import DriveInverter, InversionSettings
+    from tbminv.inversion.drive import DriveInverter
+    from tbminv.inversion.settings import InversionSettings
 
     layout, data = _data(advances)
     settings = InversionSettings(max_iter=MAX_ITER, contact_fit=False, time_lapse=time_lapse)
@@ -117,8 +118,8 @@ def _section_row(r) -> dict:
 
 
 def run_stock(advances: list[int]) -> dict:
+    from tbminv.forward.fem3d.mesh import MeshSettings, layout_mesh
     from tbminv.gimli import configure_operator, ert, pg
-    from tbminv.mesh3d import MeshSettings, layout_mesh
 
     layout, data = _data(advances)
     rows = []

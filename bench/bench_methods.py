@@ -19,14 +19,14 @@ from pathlib import Path
 
 import numpy as np
 
-from tbminv import methods
-from tbminv.axisym import AxisymSettings
-from tbminv.contactfit import ContactFitSettings
-from tbminv.cylmesh import CylMeshSettings
+from tbminv.forward.axisym.fields import AxisymSettings
+from tbminv.forward.axisym.mesh import CylMeshSettings
+from tbminv.forward.registry import make_model
 from tbminv.ground import demo_ground_path, load_scenario
-from tbminv.invert import InversionSettings
+from tbminv.inversion.contactfit import ContactFitSettings
+from tbminv.inversion.settings import InversionSettings
 from tbminv.layout import demo_layout_path, load_layout
-from tbminv.models import make_model
+from tbminv.studies import methods
 
 FACES_M = [1222.0, 1226.0, 1230.0, 1234.0]
 OUT = Path(__file__).parent / "results"
@@ -34,7 +34,7 @@ OUT = Path(__file__).parent / "results"
 
 def main() -> None:
     logging.basicConfig(level=logging.WARNING)
-    logging.getLogger("tbminv.axisym").setLevel(logging.ERROR)
+    logging.getLogger(__name__).setLevel(logging.ERROR)
     logging.getLogger("Core").setLevel(logging.WARNING)
     methods.register_simulate_models()
     layout = methods.compact_layout(load_layout(demo_layout_path()))

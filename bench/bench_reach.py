@@ -19,9 +19,10 @@ from pathlib import Path
 
 import numpy as np
 
-from tbminv.axisym import AxisymSettings
+from tbminv.forward.axisym.fields import AxisymSettings
 from tbminv.layout import Layout, demo_layout_path, load_layout
-from tbminv.reach import ReachSettings, run_sweep
+from tbminv.studies.reach import ReachSettings
+from tbminv.studies.sweep import run_sweep
 
 RESULTS = Path(__file__).resolve().parent / "results"
 DIAMETERS = [4.0, 6.0, 8.0, 10.0]

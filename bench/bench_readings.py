@@ -83,9 +83,10 @@ def _maxrss_mb() -> float:
 
 def run_stage(stage: str, log: Path, out: Path) -> dict[str, float]:
     """One stage in this process; returns timings and peak memory."""
+    from tbminv.jobs import run_check
     from tbminv.layout import demo_layout_path, load_layout
-    from tbminv.qc import QCSettings, run_check, run_qc
-    from tbminv.readings import read_readings
+    from tbminv.readings.qc import QCSettings, run_qc
+    from tbminv.readings.reader import read_readings
 
     layout = load_layout(demo_layout_path())
     base = _maxrss_mb()

@@ -27,7 +27,7 @@ import pandas as pd
 from tbminv.cli import parse_faces
 from tbminv.ground import demo_ground_path, load_scenario
 from tbminv.layout import demo_layout_path, load_layout
-from tbminv.simulate import simulate_drive, write_readings
+from tbminv.studies.simulate import simulate_drive, write_readings
 
 SEED = 20260314
 FACES = "1219:1232.5:1.5"

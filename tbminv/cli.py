@@ -1,6 +1,6 @@
 """The ``tbminv`` command line: parses arguments and calls the library (nothing else).
 
-Commands (contract, see the shared design §3.5)::
+Commands (the README lists them; DEVELOPERS.md the file formats)::
 
     tbminv simulate --layout L.toml --ground G.toml --faces START:STOP:STEP --out readings.csv
                     [--model axisym|3d|section] [--noise-rel R] [--noise-abs V] [--seed N]
@@ -13,23 +13,34 @@ Commands (contract, see the shared design §3.5)::
     tbminv demo --out DIR
     tbminv env                      # environment report for bug reports
 
-Exit codes: 0 success, 1 the job ran but found nothing usable, 2 bad input or a command whose
-module is not available in this version.
+Exit codes: 0 success, 1 the job ran but found nothing usable, 2 bad input (one line naming the
+file, row or field).
 """
 
 from __future__ import annotations
 
 import argparse
-import importlib
 import logging
 import sys
 from collections.abc import Callable, Sequence
 from pathlib import Path
-from typing import Any
 
 import numpy as np
 
-_LOG = logging.getLogger("tbminv.cli")
+from tbminv import environment_report
+from tbminv.demo import run_demo
+from tbminv.ground import ScenarioError, load_scenario
+from tbminv.inversion.outcome import SectionError
+from tbminv.inversion.settings import InversionError
+from tbminv.jobs import invert_job, reach_job, report_job, run_check
+from tbminv.layout import LayoutError, load_layout
+from tbminv.materials import MaterialTableError
+from tbminv.readings.qc import QCError, QCSettings
+from tbminv.readings.reader import ReadingsError
+from tbminv.results.ahead import AheadSettingsError
+from tbminv.studies.simulate import simulate_drive, write_readings
+
+_LOG = logging.getLogger(__name__)
 
 
 class CLIError(Exception):
@@ -62,43 +73,25 @@ def parse_faces(text: str) -> np.ndarray:
                        "(e.g. 1200:1236:1.5) or a comma-separated list") from None
 
 
-def _module(name: str, command: str) -> Any:
-    try:
-        return importlib.import_module(f"tbminv.{name}")
-    except ModuleNotFoundError as exc:
-        if exc.name == f"tbminv.{name}":
-            raise CLIError(f"tbminv {command}: not available in this version (module "
-                           f"tbminv.{name} is not built yet)") from None
-        raise
-
-
-def _load_layout(path: str) -> Any:
-    from tbminv.layout import load_layout
-
-    return load_layout(path)
 
 
 def cmd_simulate(args: argparse.Namespace) -> int:
     """Run ``tbminv simulate``."""
-    from tbminv.ground import load_scenario
-
-    sim = _module("simulate", "simulate")
-    layout = _load_layout(args.layout)
+    layout = load_layout(args.layout)
     scenario = load_scenario(args.ground)
     faces = parse_faces(args.faces)
-    df = sim.simulate_drive(layout, scenario, faces, model=args.model,
+    df = simulate_drive(layout, scenario, faces, model=args.model,
                             noise_rel=args.noise_rel, noise_abs_v=args.noise_abs, seed=args.seed)
-    out = sim.write_readings(df, args.out)
+    out = write_readings(df, args.out)
     print(f"simulated {len(faces)} advances, {len(df)} readings ({args.model} model) -> {out}")
     return 0
 
 
 def cmd_check(args: argparse.Namespace) -> int:
     """Run ``tbminv check``."""
-    qc = _module("qc", "check")
-    layout = _load_layout(args.layout)
-    settings = qc.QCSettings.from_toml(args.settings) if args.settings else None
-    result = qc.run_check(args.readings, layout, args.out, settings)
+    layout = load_layout(args.layout)
+    settings = QCSettings.from_toml(args.settings) if args.settings else None
+    result = run_check(args.readings, layout, args.out, settings)
     for line in result.describe():
         print(line)
     return 0 if result.usable else 1
@@ -106,32 +99,32 @@ def cmd_check(args: argparse.Namespace) -> int:
 
 def cmd_invert(args: argparse.Namespace) -> int:
     """Run ``tbminv invert``."""
-    inv = _module("invert", "invert")
-    return int(inv.run_invert_cli(args, echo=print))
+    return invert_job(args.readings, args.layout, args.store, settings_path=args.settings,
+                      cold=args.cold, scheduler=args.scheduler, echo=print)
 
 
 def cmd_reach(args: argparse.Namespace) -> int:
     """Run ``tbminv reach``."""
-    reach = _module("reach", "reach")
-    return int(reach.run_reach_cli(args, echo=print))
+    return reach_job(args.layout, args.out, contrast=args.contrast, noise_rel=args.noise_rel,
+                     noise_abs_v=args.noise_abs, k=args.k, model=args.model,
+                     model_settings=args.model_settings, target=args.target,
+                     sweep_path=args.sweep, workers=args.workers, scheduler=args.scheduler,
+                     echo=print)
 
 
 def cmd_report(args: argparse.Namespace) -> int:
     """Run ``tbminv report``."""
-    report = _module("report", "report")
-    return int(report.run_report_cli(args, echo=print))
+    return report_job(args.store, args.out, settings_path=args.settings,
+                      materials_path=args.materials, shift=args.shift, echo=print)
 
 
 def cmd_demo(args: argparse.Namespace) -> int:
     """Run ``tbminv demo``: the whole chain on the bundled demo drive."""
-    demo = _module("demo", "demo")
-    return int(demo.run_demo(Path(args.out), echo=print))
+    return run_demo(Path(args.out), echo=print)
 
 
 def cmd_env(args: argparse.Namespace) -> int:
     """Print the environment report."""
-    from tbminv import environment_report
-
     print(environment_report())
     return 0
 
@@ -239,23 +232,8 @@ def main(argv: Sequence[str] | None = None) -> int:
     logging.basicConfig(level=level, format="%(levelname)s %(name)s: %(message)s")
     logging.getLogger("tbminv").setLevel(level)
     func: Callable[[argparse.Namespace], int] = args.func
-    from tbminv.ground import ScenarioError
-    from tbminv.layout import LayoutError
-
-    expected: tuple[type[BaseException], ...] = (CLIError, LayoutError, ScenarioError,
-                                                 FileNotFoundError)
-    try:
-        from tbminv.ahead import AheadSettingsError
-        from tbminv.invert import InversionError
-        from tbminv.materials import MaterialTableError
-        from tbminv.qc import QCError
-        from tbminv.readings import ReadingsError
-        from tbminv.section import SectionError
-
-        expected = (*expected, ReadingsError, QCError, SectionError, InversionError,
-                    AheadSettingsError, MaterialTableError)
-    except ImportError:
-        pass
+    expected = (CLIError, LayoutError, ScenarioError, FileNotFoundError, ReadingsError, QCError,
+                SectionError, InversionError, AheadSettingsError, MaterialTableError)
     try:
         return func(args)
     except expected as exc:

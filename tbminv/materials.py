@@ -33,7 +33,7 @@ from typing import Any
 
 import numpy as np
 
-_LOG = logging.getLogger("tbminv.materials")
+_LOG = logging.getLogger(__name__)
 
 HANDBOOK_SOURCE = ("Reynolds 2011, An Introduction to Applied and Environmental Geophysics, "
                    "2nd ed., table 7.1 (after Telford et al. 1990) -- ranges written from memory "

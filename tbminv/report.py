@@ -8,13 +8,12 @@ per advance, the QC summary (if given) and the provenance (input hashes, setting
 
 from __future__ import annotations
 
-import argparse
 import datetime as _dt
 import hashlib
 import json
 import logging
 import textwrap
-from collections.abc import Callable, Mapping
+from collections.abc import Mapping
 from pathlib import Path
 from typing import Any
 
@@ -25,12 +24,13 @@ from matplotlib.backends.backend_pdf import PdfPages
 from matplotlib.figure import Figure
 
 import tbminv
-from tbminv import figures
-from tbminv.ahead import AheadSettings, AheadSummary, detect_changes
 from tbminv.materials import HANDBOOK_TABLE, MaterialTable, candidate_table_rows
-from tbminv.section import SectionError, open_section
+from tbminv.plots import section as figures
+from tbminv.results.ahead import AheadSettings, AheadSummary, detect_changes
+from tbminv.results.section import SectionError
+from tbminv.results.store import open_section
 
-_LOG = logging.getLogger("tbminv.report")
+_LOG = logging.getLogger(__name__)
 
 PAGE = (11.69, 8.27)  # A4 landscape, inches
 WRAP = 150
@@ -250,34 +250,4 @@ def write_report(store_path: str | Path, out_dir: str | Path,
     return written
 
 
-def run_report_cli(args: argparse.Namespace, echo: Callable[[str], None] | None = None) -> int:
-    """``tbminv report STORE --out DIR [--settings S] [--materials T] [--shift L]``.
-
-    Writes the report and says where each output went. ``--settings`` gives the ``[ahead]``
-    thresholds, ``--materials`` a site-calibrated material table.
-
-    Lines for the user go to ``echo`` (the command line passes ``print``; the default logs them),
-    so the library itself never prints. A store that cannot be read raises
-    :class:`FileNotFoundError` or :class:`~tbminv.section.SectionError`, which the command line
-    reports with exit code 2.
-
-    Returns
-    -------
-    int
-        0 on success.
-    """
-    echo = echo or _LOG.info
-    ahead = table = None
-    if getattr(args, "settings", None):
-        ahead = AheadSettings.from_toml(args.settings)
-    if getattr(args, "materials", None):
-        from tbminv.materials import load_material_table
-
-        table = load_material_table(args.materials)
-    for p in write_report(args.store, args.out, shift=getattr(args, "shift", None),
-                          material_table=table, ahead_settings=ahead):
-        echo(f"wrote {p}")
-    return 0
-
-
-__all__ = ["write_report", "run_report_cli"]
+__all__ = ["write_report"]

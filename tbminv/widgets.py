@@ -22,9 +22,9 @@ import numpy as np
 import xarray as xr
 from matplotlib.figure import Figure
 
-from tbminv import figures
+from tbminv.plots import section as figures
 
-_LOG = logging.getLogger("tbminv.widgets")
+_LOG = logging.getLogger(__name__)
 
 
 def _png(fig: Figure, dpi: int = 80) -> bytes:

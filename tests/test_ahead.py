@@ -11,7 +11,7 @@ import importlib.util
 import pytest
 from test_section import make_section
 
-from tbminv.ahead import LEVELS, AheadSettings, AheadSettingsError, detect_changes
+from tbminv.results.ahead import LEVELS, AheadSettings, AheadSettingsError, detect_changes
 
 
 def test_stationary_contact_from_contact_fits_is_firm():
@@ -92,7 +92,7 @@ def _drive(tmp_path, name):
     import sys
     from pathlib import Path
 
-    from tbminv.section import open_section
+    from tbminv.results.store import open_section
 
     data = Path(__file__).parent / "data"
     settings = tmp_path / "settings.toml"
@@ -154,7 +154,7 @@ def test_pick_slope_is_weighted_least_squares():
     # uncertainties) gives the same weighted slope
     import numpy as np
 
-    from tbminv.ahead import Pick, _slope
+    from tbminv.results.ahead import Pick, _slope
 
     faces = np.array([9.0, 10.5, 12.0, 13.5, 15.0, 16.5, 18.0])
     chain = np.array([31.1, 32.2, 26.2, 31.6, 25.7, 26.6, 28.5])
@@ -172,7 +172,7 @@ def test_far_wide_picks_do_not_hide_a_stationary_contact():
     # early far picks scatter within their wide intervals; the later sharp ones stay put
     import numpy as np
 
-    from tbminv.ahead import Pick, _groups, _slope
+    from tbminv.results.ahead import Pick, _groups, _slope
 
     faces = np.arange(7) * 1.5 + 9.0
     chain = np.array([31.0, 32.0, 26.5, 31.5, 26.0, 29.6, 30.1])

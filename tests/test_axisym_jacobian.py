@@ -6,8 +6,9 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from tbminv.axisym import AxElectrode, AxisymForward, AxisymSettings
-from tbminv.cylmesh import CylGeometry, CylMeshSettings
+from tbminv.forward.axisym.fields import AxElectrode, AxisymSettings
+from tbminv.forward.axisym.mesh import CylGeometry, CylMeshSettings
+from tbminv.forward.axisym.solver import AxisymForward
 
 GEO = CylGeometry(machine_radius_m=3.1, shield_length_m=9.5, tunnel_length_m=20.0)
 MESH = CylMeshSettings(h_fine_m=0.1, growth=1.3, domain_m=200.0)

@@ -7,8 +7,9 @@ import math
 import numpy as np
 import pytest
 
-from tbminv.analytic import contact_potential
-from tbminv.axisym import AxElectrode, AxisymForward, AxisymSettings
+from tbminv.forward.analytic import contact_potential
+from tbminv.forward.axisym.fields import AxElectrode, AxisymSettings
+from tbminv.forward.axisym.solver import AxisymForward
 
 D = 6.0  # machine diameter used to scale distances, m (common practice for a mid-size TBM)
 
@@ -35,7 +36,7 @@ def test_homogeneous_full_space(sr):
     checks the source normalisation of the harmonic weak form itself."""
     srcs = [AxElectrode("A", 0.0, 0.0, 0.0), AxElectrode("B", 0.05, 2.0, 0.0)]
     recs = [AxElectrode(f"R{i}", x, r, t) for i, (x, r, t) in enumerate(_receivers())]
-    from tbminv.cylmesh import CylMeshSettings
+    from tbminv.forward.axisym.mesh import CylMeshSettings
 
     # the plain point-load field needs a finer mesh near the sources
     mesh = CylMeshSettings() if sr else CylMeshSettings(h_fine_m=0.02, growth=1.1)
@@ -134,7 +135,7 @@ def test_sphere_on_axis(rho2):
     recs = [AxElectrode(f"R{i}", x, r, t) for i, (x, r, t) in enumerate(pts)]
     lines_x = list(np.arange(x0 - a, x0 + a + 1e-9, 0.1))
     lines_r = list(np.arange(0.1, a + 1e-9, 0.1))
-    from tbminv.axisym import AxisymForward as F
+    from tbminv.forward.axisym.solver import AxisymForward as F
 
     f = F(srcs + recs, ["A"], [e.label for e in recs], extra_x=lines_x, extra_r=lines_r)
     g = f.solve(_sphere_rho(f, x0, a, rho1, rho2)).potentials()

@@ -7,8 +7,9 @@ import math
 import numpy as np
 import pytest
 
-from tbminv.axisym import AxElectrode, AxisymForward, AxisymSettings
-from tbminv.cylmesh import CylGeometry, CylMeshSettings
+from tbminv.forward.axisym.fields import AxElectrode, AxisymSettings
+from tbminv.forward.axisym.mesh import CylGeometry, CylMeshSettings
+from tbminv.forward.axisym.solver import AxisymForward
 
 GEO = CylGeometry(machine_radius_m=3.1, shield_length_m=9.5, tunnel_length_m=30.0)
 MESH = CylMeshSettings(h_fine_m=0.05, growth=1.2)

@@ -14,8 +14,8 @@ from pathlib import Path
 import numpy as np
 import pytest
 
+from tbminv.forward.registry import make_model
 from tbminv.ground import Contact, Scenario
-from tbminv.models import make_model
 
 sys.path.insert(0, str(Path(__file__).parent / "data"))
 from make_drive_fixtures import fixture_layout  # noqa: E402

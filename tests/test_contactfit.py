@@ -10,10 +10,10 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from tbminv.contactfit import ContactFitter, ResponseTable, build_response_table
+from tbminv.forward.registry import make_model
 from tbminv.ground import Contact, Scenario
+from tbminv.inversion.contactfit import ContactFitter, ResponseTable, build_response_table
 from tbminv.layout import Layout
-from tbminv.models import make_model
 
 D = 6.0
 

@@ -13,12 +13,12 @@ import math
 import numpy as np
 import pytest
 
-from tbminv.forward3d import Forward3D, ForwardSettings, unit_potentials
-from tbminv.geofactor import apparent_resistivity, geometric_factors
+from tbminv.forward.fem3d.mesh import MeshSettings, TunnelGeometry, build_mesh, electrode_points
+from tbminv.forward.fem3d.model import Forward3D, ForwardSettings, unit_potentials
+from tbminv.forward.ratio import apparent_resistivity, geometric_factors
 from tbminv.gimli import configure_operator, ert, pg
 from tbminv.ground import Scenario
 from tbminv.layout import Layout
-from tbminv.mesh3d import MeshSettings, TunnelGeometry, build_mesh, electrode_points
 
 D = 6.0
 FACE = 500.0
@@ -204,7 +204,7 @@ def test_machine_resistivity_convergence():
              ("S1", "R2", "W1", "R1")]
     fw = Forward3D(lay, ForwardSettings(p2=False, mesh=SMALL))
     tm = fw.mesh(None, FACE)
-    from tbminv.forward3d import cell_resistivity
+    from tbminv.forward.fem3d.model import cell_resistivity
     caps = [1e-2, 1e-3, 1e-4, 1e-5, 1e-6]
     out = {}
     for cap in caps:

@@ -12,17 +12,15 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from tbminv.invert import (
-    DriveInverter,
-    InversionSettings,
-    advance_data,
-    build_parameter_grid,
-    run_drive,
-    shift_model,
-)
+from tbminv.inversion.drive import DriveInverter
+from tbminv.inversion.grid import build_parameter_grid
+from tbminv.inversion.image import shift_model
+from tbminv.inversion.settings import InversionSettings
+from tbminv.jobs import run_drive
 from tbminv.layout import load_layout
-from tbminv.qc import QCSettings, run_qc
-from tbminv.readings import read_readings
+from tbminv.readings.advance import advance_data
+from tbminv.readings.qc import QCSettings, run_qc
+from tbminv.readings.reader import read_readings
 
 DATA = Path(__file__).parent / "data"
 D = 6.0
@@ -139,7 +137,7 @@ def test_warm_start_matches_cold_in_fewer_iterations(layout):
 
 
 def test_time_lapse_needs_consecutive_advances(layout):
-    from tbminv.invert import InversionError
+    from tbminv.inversion.settings import InversionError
 
     data = drive_data("homogeneous_seed7", layout)[:2]
     inv = DriveInverter(layout, InversionSettings(time_lapse=True))
@@ -170,7 +168,7 @@ def test_cold_advances_on_dask_workers_equal_serial_run(layout, tmp_path):
 
     from dask.distributed import LocalCluster
 
-    from tbminv.section import open_section
+    from tbminv.results.store import open_section
 
     settings = tmp_path / "settings.toml"
     settings.write_text('[qc]\nerror_model_group = "log"\n'

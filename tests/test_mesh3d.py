@@ -7,8 +7,7 @@ import math
 import numpy as np
 import pytest
 
-from tbminv.layout import Layout
-from tbminv.mesh3d import (
+from tbminv.forward.fem3d.mesh import (
     REGIONS,
     MeshSettings,
     TunnelGeometry,
@@ -16,6 +15,7 @@ from tbminv.mesh3d import (
     electrode_points,
     layout_mesh,
 )
+from tbminv.layout import Layout
 
 COARSE = MeshSettings(box_m=80.0, n_segments=12, face_size_m=1.0, growth=1.8,
                       refine_ahead_m=8.0, electrode_size_m=0.2)
@@ -157,7 +157,7 @@ def test_cache_roundtrip(tmp_path, monkeypatch):
 def test_gap_to_the_wall_kept():
     """An insulated shield electrode keeps its gap (radius_m - D/2) to the polygon wall at its
     angle; regular-polygon apothem R cos(pi/n) (elementary geometry)."""
-    from tbminv.mesh3d import polygon_radius
+    from tbminv.forward.fem3d.mesh import polygon_radius
 
     R, n = 3.0, 12
     assert polygon_radius(R, n, 0.0) == pytest.approx(R)

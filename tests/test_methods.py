@@ -6,9 +6,10 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from tbminv import methods as M
-from tbminv.invert import AdvanceData
 from tbminv.layout import demo_layout_path, load_layout
+from tbminv.plots.methods import save_comparison
+from tbminv.readings.advance import AdvanceData
+from tbminv.studies import methods as M
 
 
 def test_equivalent_contact_of_a_sharp_step_is_the_step():
@@ -116,7 +117,7 @@ def test_tables_have_a_row_per_method():
 
 def test_save_comparison_writes_tables_and_figures(tmp_path):
     table = M.records_table(_records())
-    paths = M.save_comparison(table, tmp_path, stem="cmp")
+    paths = save_comparison(table, tmp_path, stem="cmp")
     names = {p.name for p in paths}
     assert {"cmp.csv", "cmp_summary.csv", "cmp.pdf", "cmp.png"} <= names
     back = pd.read_csv(tmp_path / "cmp.csv")
@@ -169,9 +170,9 @@ def test_image_contact_reads_the_axis_column():
 def test_p1_simulation_hook_matches_the_3d_model():
     # the registered "3d-p1" model is pyGIMLi's 3D forward with linear elements, and obeys
     # reciprocity (swap current and potential pairs) like any linear resistor network
-    from tbminv.forward3d import ForwardSettings, forward3d
+    from tbminv.forward.fem3d.model import ForwardSettings, forward3d
     from tbminv.ground import Scenario
-    from tbminv.simulate import get_model
+    from tbminv.studies.simulate import get_model
 
     assert M.register_simulate_models() == ("3d-p1",)
     lay = M.compact_layout(load_layout(demo_layout_path()), walls=False)

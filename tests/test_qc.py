@@ -10,8 +10,9 @@ import pandas as pd
 import pytest
 
 from tbminv.gimli import ert, pg
+from tbminv.jobs import run_check
 from tbminv.layout import demo_layout_path, load_layout
-from tbminv.qc import (
+from tbminv.readings.qc import (
     Flag,
     QCError,
     QCSettings,
@@ -20,10 +21,9 @@ from tbminv.qc import (
     fit_error_model,
     flag_names,
     reciprocal_error,
-    run_check,
     run_qc,
 )
-from tbminv.readings import read_readings
+from tbminv.readings.reader import read_readings
 
 LAYOUT = load_layout(demo_layout_path())
 # quadrupoles with four distinct electrodes on the machine (cutterhead dipoles)

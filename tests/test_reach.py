@@ -6,9 +6,10 @@ import numpy as np
 import pytest
 from scipy.optimize import brentq
 
+from tbminv.forward.registry import ModelNotAvailable, make_model
 from tbminv.layout import Layout
-from tbminv.models import ModelNotAvailable, make_model
-from tbminv.reach import ReachSettings, reach_study, run_sweep, scale_layout
+from tbminv.studies.reach import ReachSettings, reach_study
+from tbminv.studies.sweep import run_sweep, scale_layout
 
 
 def pole_pole_layout(diameter_m: float = 6.0) -> Layout:
@@ -92,7 +93,7 @@ def test_scale_layout_keeps_skin_offsets():
 
 def test_scale_layout_proportional_scales_walls_about_the_face():
     from tbminv.layout import demo_layout_path, load_layout
-    from tbminv.reach import default_face_chainage
+    from tbminv.studies.reach import default_face_chainage
 
     layout = load_layout(demo_layout_path())
     face = default_face_chainage(layout)
@@ -105,7 +106,7 @@ def test_scale_layout_proportional_scales_walls_about_the_face():
 def test_demo_sweep_file_reads():
     from importlib.resources import files
 
-    from tbminv.reach import load_sweep
+    from tbminv.studies.reach import load_sweep
 
     sweep, opts = load_sweep(files("tbminv") / "data" / "demo_sweep.toml")
     assert sweep == {"diameter_m": [4.0, 6.0, 8.0, 10.0], "contrast": [0.1, 10.0]}
@@ -124,22 +125,15 @@ def _reduced_demo_toml(tmp_path):
     return path
 
 
-def _cli_args(layout, out, **kw):
-    import argparse
-
-    base = {"layout": str(layout), "out": str(out), "contrast": 10.0, "noise_rel": 0.02,
-            "noise_abs": 0.0, "sweep": None, "scheduler": None}
-    base.update(kw)
-    return argparse.Namespace(**base)
 
 
 def test_cli_single_layout_writes_dataset_and_figure(tmp_path, capsys):
     import xarray as xr
 
-    from tbminv.reach import run_reach_cli
+    from tbminv.jobs import reach_job
 
     layout = _reduced_demo_toml(tmp_path)
-    assert run_reach_cli(_cli_args(layout, tmp_path / "out"), echo=print) == 0
+    assert reach_job(layout, tmp_path / "out", echo=print) == 0
     ds = xr.load_dataset(tmp_path / "out" / "reach.nc")
     assert ds.relative_response.dims == ("measurement", "distance_ahead")
     assert ds.detectable_ahead_m.dims == ("measurement",)
@@ -156,13 +150,13 @@ def test_cli_single_layout_writes_dataset_and_figure(tmp_path, capsys):
 def test_cli_sweep_writes_dataset_and_map(tmp_path):
     import xarray as xr
 
-    from tbminv.reach import run_reach_cli
+    from tbminv.jobs import reach_job
 
     layout = _reduced_demo_toml(tmp_path)
     sweep = tmp_path / "sweep.toml"
     sweep.write_text('[sweep]\ndiameter_m = [4.0, 8.0]\n[options]\nlength = "proportional"\n'
                      'distances_in_diameters = [0.5, 1.0, 2.0, 4.0]\n', encoding="utf-8")
-    assert run_reach_cli(_cli_args(layout, tmp_path / "out", sweep=str(sweep), workers=2)) == 0
+    assert reach_job(layout, tmp_path / "out", sweep_path=sweep, workers=2) == 0
     ds = xr.load_dataset(tmp_path / "out" / "sweep.nc")
     assert ds.reach_m.dims == ("diameter_m",)
     assert (tmp_path / "out" / "reach_map.png").exists()

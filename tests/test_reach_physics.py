@@ -5,9 +5,10 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from tbminv.axisym import AxisymSettings
+from tbminv.forward.axisym.fields import AxisymSettings
 from tbminv.layout import Layout, demo_layout_path, load_layout
-from tbminv.reach import ReachSettings, reach_study, run_sweep
+from tbminv.studies.reach import ReachSettings, reach_study
+from tbminv.studies.sweep import run_sweep
 
 FAST = {"settings": AxisymSettings.fast()}
 

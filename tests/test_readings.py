@@ -16,7 +16,7 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 from tbminv.layout import demo_layout_path, load_layout
-from tbminv.readings import (
+from tbminv.readings.reader import (
     QUARANTINE_COLUMNS,
     REASONS,
     REQUIRED_COLUMNS,

@@ -15,9 +15,9 @@ from pypdf import PdfReader
 from test_section import make_section
 
 import tbminv
-from tbminv import figures
+from tbminv.plots import section as figures
 from tbminv.report import write_report
-from tbminv.section import append_shift, open_section
+from tbminv.results.store import append_shift, open_section
 
 
 @pytest.fixture(scope="module")

@@ -14,18 +14,9 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from tbminv.section import (
-    FLAG_MISFIT_HIGH,
-    FLAG_NOT_CONVERGED,
-    AdvanceResult,
-    ContactFit,
-    SectionError,
-    append_shift,
-    build_section,
-    open_section,
-    shift_advances,
-    world_view,
-)
+from tbminv.inversion.outcome import FLAG_MISFIT_HIGH, FLAG_NOT_CONVERGED, AdvanceResult, ContactFit
+from tbminv.results.section import SectionError, build_section, shift_advances, world_view
+from tbminv.results.store import append_shift, open_section
 
 LAYOUT_TEXT = textwrap.dedent("""\
     [machine]
@@ -244,7 +235,7 @@ KILL_SCRIPT = """
 import sys, time
 from pathlib import Path
 sys.path.insert(0, {tests!r})
-import tbminv.section as section
+import tbminv.results.store as section
 from test_section import make_section
 
 marker = Path({marker!r})

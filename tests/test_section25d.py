@@ -5,10 +5,10 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
+from tbminv.forward.cartesian25d import Section25DSettings, SectionModel
+from tbminv.forward.registry import make_model
 from tbminv.ground import Scenario
 from tbminv.layout import Layout
-from tbminv.models import make_model
-from tbminv.section25d import Section25DSettings, SectionModel
 
 
 def layout(model_body: bool, cover_m: float = 14.0) -> Layout:

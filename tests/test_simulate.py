@@ -8,7 +8,7 @@ import pytest
 
 from tbminv.ground import Scenario
 from tbminv.layout import Layout
-from tbminv.simulate import (
+from tbminv.studies.simulate import (
     COLUMNS,
     MODELS,
     get_model,

@@ -15,10 +15,10 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from tbminv.analytic import layout_response
+from tbminv.forward.analytic import layout_response
+from tbminv.forward.ratio import needs_correction, surface_factors
 from tbminv.ground import Scenario
 from tbminv.layout import Layout, load_layout
-from tbminv.surface import needs_correction, surface_factors
 
 DATA = Path(__file__).parent / "data"
 D = 6.0
@@ -68,9 +68,11 @@ def test_surface_factor_matches_image_method():
 def test_corrected_contact_fit_under_a_surface():
     # 1:10 contact at chainage 30 m, ground 50 ohm-m, surface 12 m above the crown (2 D), 3D
     # model, 2 % noise, seed 19 (tests/data/make_drive_fixtures.py); faces 6..27 m every 3 m
-    from tbminv.invert import DriveInverter, InversionSettings, advance_data
-    from tbminv.qc import QCSettings, run_qc
-    from tbminv.readings import read_readings
+    from tbminv.inversion.drive import DriveInverter
+    from tbminv.inversion.settings import InversionSettings
+    from tbminv.readings.advance import advance_data
+    from tbminv.readings.qc import QCSettings, run_qc
+    from tbminv.readings.reader import read_readings
 
     lay = load_layout(DATA / "fixture_layout_cover12.toml")
     readings = read_readings(DATA / "drive_cover12_contact01_seed19.csv", lay)

@@ -12,9 +12,9 @@ import xarray as xr
 
 from tbminv.gimli import ert, pg
 from tbminv.layout import demo_layout_path, load_layout
-from tbminv.qc import QCSettings, run_qc
-from tbminv.readings import read_readings
-from tbminv.survey import (
+from tbminv.readings.qc import QCSettings, run_qc
+from tbminv.readings.reader import read_readings
+from tbminv.readings.survey import (
     ANALYTIC_FULL_SPACE,
     Survey,
     full_space_geometric_factor,

@@ -23,7 +23,7 @@ import numpy as np
 
 from tbminv.ground import Contact, Scenario
 from tbminv.layout import Layout
-from tbminv.simulate import simulate_drive, write_readings
+from tbminv.studies.simulate import simulate_drive, write_readings
 
 HERE = Path(__file__).parent
 D = 6.0

@@ -1,0 +1,1 @@
+"""The axisymmetric harmonic model: (x, r) mesh, element integrals, solver, layout adapter."""

@@ -1,0 +1,1 @@
+"""Inversion: settings, parameter grid, pyGIMLi operator, one image, the drive, contact fit."""

@@ -1,0 +1,355 @@
+"""Inversion along the drive: one image per advance with the machine fixed, warm-started.
+
+For every advance the checked readings (:mod:`tbminv.qc`) become apparent resistivities with
+numeric geometric factors (``k = rho_ref / R_hom`` from a homogeneous run of the same forward
+model with the machine and tunnel in, so that homogeneous ground returns its resistivity; the
+ratio method of Fox et al. 1980, Geophysics 45(1):75-93) and are inverted with pyGIMLi's
+:class:`pygimli.Inversion` (log data, log-bounded model, smoothness regularisation on the
+parameter mesh) through the axisymmetric forward operator (:mod:`tbminv.axisym`).
+
+* The parameter mesh is a tensor grid of the ground in the machine frame, ``ahead`` x ``radius``,
+  coarser than the forward mesh, built once per layout; its lines follow the machine and tunnel
+  edges so the steel and the bore are left out (fixed regions, never inverted). It reaches the
+  forward domain's edge with growing cells, so every forward ground cell belongs to one parameter.
+* Data weights come from the QC error model only. ``err_ohm`` there estimates the standard
+  deviation of the normal-reciprocal difference, so one reading has ``err / sqrt(2)`` and the
+  mean of a pair ``err / 2``. Readings without an error model are not inverted.
+* lambda rules (``InversionSettings.lambda_rule``): ``cooling`` (default: start at ``lam``,
+  multiply by ``lambda_factor`` each iteration, stop at chi-squared 1 — an Occam-style descent,
+  Constable et al. 1987, Geophysics 52(3):289-300), ``fixed`` and ``lcurve`` (the corner of
+  misfit vs roughness over ``lcurve_lams``, Hansen 1992, SIAM Review 34(4):561-580).
+* Every inversion records chi-squared history, rrms, lambda, iterations, stop reason and time;
+  a non-converged fit or chi-squared above ``chi2_flag`` is flagged in the section store.
+* Coverage: log10 of the error-weighted cumulative absolute log-sensitivity per unit volume;
+  optional depth-of-investigation index from two more inversions with references at
+  ``0.5`` and ``2`` times the start model (Oldenburg & Li 1999, Geophysics 64(2):403-416).
+* Along the drive each advance starts from the previous model shifted by the advance (the ground
+  moves towards the machine), interpolated in log resistivity; ``cold=True`` starts every advance
+  from the homogeneous median apparent resistivity.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import logging
+import math
+from collections.abc import Sequence
+from typing import Any
+
+import numpy as np
+
+from tbminv.inversion.grid import build_parameter_grid
+from tbminv.inversion.image import ImageResult, invert_image, shift_model
+from tbminv.inversion.operator import DriveOperator
+from tbminv.inversion.settings import SCHEDULER_NEEDS_COLD, InversionError, InversionSettings
+from tbminv.layout import Layout
+from tbminv.readings.advance import AdvanceData
+
+_LOG = logging.getLogger(__name__)
+
+
+# ------------------------------------------------------------------------ drive
+class DriveInverter:
+    """Invert a drive advance by advance (mesh and operator built once per electrode set).
+
+    Parameters
+    ----------
+    layout : Layout
+    settings : InversionSettings, optional
+    model : ForwardModel, optional
+        An ``axisym`` model built for ``layout`` (default: built here).
+    """
+
+    def __init__(self, layout: Layout, settings: InversionSettings | None = None,
+                 model: Any | None = None) -> None:
+        from tbminv.forward.registry import make_model
+
+        self.layout = layout
+        self.settings = settings or InversionSettings()
+        if self.settings.model != "axisym" and model is None:
+            raise InversionError(f"image inversion needs the axisym model, not "
+                                 f"{self.settings.model!r}")
+        if model is None:
+            from tbminv.studies.reach import model_options_for
+
+            model = make_model("axisym", layout,
+                               **model_options_for("axisym", self.settings.forward_settings))
+        self.model = model
+        self.grid = build_parameter_grid(layout, self.settings)
+        self._ops: dict[tuple, DriveOperator] = {}
+        self._k: dict[tuple, np.ndarray] = {}
+        self.rho_ref_ohmm: float | None = None
+        self._fitter = None
+
+    def _op_key(self, face: float, ch: float) -> tuple:
+        cyl = self.layout.positions_cylindrical(ch, face)
+        return tuple(sorted((k, round(v[0], 6), round(v[1], 6)) for k, v in cyl.items()
+                            if v is not None))
+
+    def operator(self, face: float, ch: float) -> DriveOperator:
+        """The (cached) operator for a face chainage and cutterhead angle."""
+        key = self._op_key(face, ch)
+        if key not in self._ops:
+            if len(self._ops) > 6:
+                self._ops.clear()
+            self._ops[key] = DriveOperator(self.layout, self.grid, face, ch, self.model)
+        return self._ops[key]
+
+    def geometric_factors(self, face: float, ch: float, rho_ref: float) -> np.ndarray:
+        """Numeric geometric factors k = rho_ref / R_hom per protocol quadrupole, m."""
+        key = (*self._op_key(face, ch), round(ch, 6), rho_ref)
+        if key not in self._k:
+            op = self.operator(face, ch)
+            r = op.response(np.full(self.grid.n_param, rho_ref), ch)
+            with np.errstate(divide="ignore"):
+                self._k[key] = np.where(np.abs(r) > 0, rho_ref / r, np.nan)
+        return self._k[key]
+
+    def contact_fitter(self, rho_ref: float) -> Any:
+        """Contact fitter with a response table of this layout (built once, cached on disk)."""
+        from tbminv.inversion.contactfit import ContactFitter, build_response_table
+
+        if self._fitter is None:
+            from tbminv.forward.registry import make_model
+
+            sub = self._machine_only_layout()
+            model = make_model("axisym", sub, settings=getattr(self.model, "settings", None))
+            table = build_response_table(sub, model, rho_ref_ohmm=rho_ref,
+                                         settings=self.settings.contact, model_name="axisym")
+            self._fitter = ContactFitter(table, self.settings.contact)
+        return self._fitter
+
+    def _machine_only_layout(self) -> Layout:
+        """The layout restricted to readings between electrodes that travel with the machine."""
+        moving = {e.label for e in self.layout.electrodes
+                  if not e.fixed_in_ground}
+        keep = tuple(q for q in self.layout.measurements
+                     if all(x is None or x in moving for x in q.labels()))
+        return dataclasses.replace(self.layout, explicit_measurements=keep, generators=())
+
+    def reference_resistivity(self, adv: AdvanceData) -> float:
+        """Reference resistivity of the drive (set once, from the first advance), ohm-m.
+
+        The median apparent resistivity of the advance with factors for 100 ohm-m, rounded to
+        two significant digits; the numeric geometric factors are computed for it.
+        """
+        if self.rho_ref_ohmm is None:
+            k0 = self.geometric_factors(adv.face_chainage_m, adv.cutterhead_deg, 100.0)
+            ra = k0 * adv.r_ohm
+            ok = np.isfinite(ra) & (ra > 0)
+            if not ok.any():
+                raise InversionError(f"advance {adv.advance}: no reading gives a positive "
+                                     "apparent resistivity")
+            self.rho_ref_ohmm = float(_round_sig(np.median(ra[ok])))
+        return self.rho_ref_ohmm
+
+    def surface_corrected(self, adv: AdvanceData) -> AdvanceData:
+        """The advance's readings as the same ground would give them without the surface.
+
+        Unchanged for a deep tunnel (infinite cover) or with ``surface_correction`` off; else
+        divided by :func:`tbminv.surface.surface_factors` at the reference resistivity.
+        """
+        from tbminv.forward.ratio import needs_correction, surface_factors
+
+        if not (self.settings.surface_correction and needs_correction(self.layout)):
+            return adv
+        f = surface_factors(self.layout, adv.face_chainage_m, adv.cutterhead_deg,
+                            rho_ohmm=self.reference_resistivity(adv))
+        return dataclasses.replace(adv, r_ohm=adv.r_ohm / f)
+
+    def invert_advance(self, adv: AdvanceData, start: np.ndarray | None = None,
+                       reference: np.ndarray | None = None) -> ImageResult:
+        """Image inversion of one advance (operator and factors from the caches)."""
+        op = self.operator(adv.face_chainage_m, adv.cutterhead_deg)
+        k = self.geometric_factors(adv.face_chainage_m, adv.cutterhead_deg,
+                                   self.reference_resistivity(adv))
+        img = invert_image(op, adv, k, self.settings, start, reference)
+        _LOG.info("advance %d at %.2f m: chi2 %.2f after %d iterations (%s), %.1f s",
+                  adv.advance, adv.face_chainage_m, img.chi2, img.iterations,
+                  img.stop_reason, img.time_s)
+        return img
+
+    def run(self, data: Sequence[AdvanceData], *, cold: bool = False,
+            progress: bool = False, client: Any | None = None,
+            scheduler: str | None = None) -> list[Any]:
+        """Invert every advance; return :class:`tbminv.section.AdvanceResult` objects.
+
+        Parameters
+        ----------
+        data : sequence of AdvanceData
+            Advances in drive order.
+        cold : bool
+            Start every advance from a homogeneous model (advances become independent).
+        progress : bool
+            Show a progress bar per advance.
+        client : dask.distributed.Client, optional
+            Run the (cold, independent) image inversions on this client's workers.
+        scheduler : str, optional
+            Address of a dask scheduler to connect to instead of ``client``.
+        """
+        if not data:
+            return []
+        if self.settings.time_lapse and cold:
+            raise InversionError("[invert] time_lapse = true regularises each advance towards "
+                                 "the previous one: it cannot be combined with a cold start "
+                                 "(--cold)")
+        distributed = client is not None or bool(scheduler)
+        if distributed and not cold:
+            raise InversionError(SCHEDULER_NEEDS_COLD)
+        from tqdm.auto import tqdm
+
+        from tbminv.forward.ratio import needs_correction
+
+        self.reference_resistivity(data[0])
+        if self.settings.surface_correction and needs_correction(self.layout):
+            data = [self.surface_corrected(adv) for adv in
+                    tqdm(data, disable=not progress, desc="surface correction (3D)",
+                         unit="advance")]
+        if distributed:
+            imgs = self._run_distributed(data, client, scheduler, progress)
+        else:
+            imgs = []
+            prev_model = prev_face = None
+            for adv in tqdm(data, disable=not progress, desc="advances", unit="advance"):
+                start = ref = None
+                if not cold and prev_model is not None and (self.settings.warm_start
+                                                            or self.settings.time_lapse):
+                    start = shift_model(self.grid, prev_model, adv.face_chainage_m - prev_face)
+                    ref = start if self.settings.time_lapse else None
+                img = self.invert_advance(adv, start, ref)
+                prev_model, prev_face = img.model_ohmm, adv.face_chainage_m
+                imgs.append(img)
+        contacts = self._contacts(data) if self.settings.contact_fit else [None] * len(data)
+        return [self._advance_result(adv, img, con)
+                for adv, img, con in zip(data, imgs, contacts)]
+
+    def _run_distributed(self, data: Sequence[AdvanceData], client: Any | None,
+                         scheduler: str | None, progress: bool) -> list[ImageResult]:
+        """Cold image inversions on dask workers (one inverter per worker process)."""
+        from dask.distributed import Client, as_completed
+        from tqdm.auto import tqdm
+
+        own = None
+        if client is None:
+            try:
+                client = own = Client(scheduler, timeout="30s")
+            except OSError as exc:
+                raise InversionError(f"--scheduler {scheduler}: cannot connect ({exc})") from None
+        try:
+            futures = [client.submit(_remote_image, self.layout, self.settings,
+                                     self.rho_ref_ohmm, adv, pure=False) for adv in data]
+            index = {f.key: i for i, f in enumerate(futures)}
+            out: list[Any] = [None] * len(data)
+            for fut in tqdm(as_completed(futures), total=len(futures), disable=not progress,
+                            desc="advances", unit="advance"):
+                out[index[fut.key]] = fut.result()
+            return out
+        finally:
+            if own is not None:
+                own.close()
+
+    def _contacts(self, data: Sequence[AdvanceData]) -> list[Any]:
+        from tbminv.inversion.outcome import ContactFit
+
+        fitter = self.contact_fitter(self.rho_ref_ohmm or 100.0)
+        full = {q: i for i, q in enumerate(self.layout.measurements)}
+        sub = [full[q] for q in self._machine_only_layout().measurements]
+        r = np.array([d.r_ohm[sub] for d in data])
+        e = np.array([d.rel_error[sub] for d in data])
+        faces = [d.face_chainage_m for d in data]
+        out = []
+        try:
+            est = fitter.fit_drive(r, e, faces)
+        except ValueError as exc:
+            _LOG.warning("contact fit skipped: %s", exc)
+            return [None] * len(data)
+        level = self.settings.contact.confidence
+        for es in est:
+            out.append(ContactFit.from_estimate(es, interval_level=level))
+        return out
+
+    def _advance_result(self, adv: AdvanceData, img: ImageResult, contact: Any) -> Any:
+        from tbminv.inversion.outcome import AdvanceResult
+
+        ahead, radius, rho, cov, doi = self.resample(img)
+        return AdvanceResult(
+            advance=adv.advance, face_chainage_m=adv.face_chainage_m, ahead_m=ahead,
+            radius_m=radius, resistivity_ohmm=rho, coverage=cov, doi_index=doi,
+            chi2=img.chi2, rrms_percent=img.rrms_percent, iterations=img.iterations,
+            lambda_=img.lam, stop_reason=img.stop_reason, converged=img.converged,
+            time_s=img.time_s, chi2_history=img.chi2_history, n_data=adv.n_readings,
+            n_used=img.n_used, contact=contact, time=adv.time)
+
+    def output_grid(self) -> tuple[np.ndarray, np.ndarray]:
+        """Cell centres (ahead, radius) of the regular output grid, m."""
+        s = self.settings
+        d = self.layout.machine.diameter_m
+        ha = s.grid_ahead_step_m or d / 12.0
+        hr = s.grid_radius_step_m or d / 12.0
+        ahead = s.ahead_m or 5.0 * d
+        behind = s.behind_m or (self.layout.machine.shield_length_m + d)
+        rmax = s.radius_m or 2.5 * d
+        na = int(round((ahead + behind) / ha))
+        nr = int(round(rmax / hr))
+        a = -behind + (np.arange(na) + 0.5) * (ahead + behind) / na
+        r = (np.arange(nr) + 0.5) * rmax / nr
+        return a, r
+
+    def resample(self, img: ImageResult) -> tuple[np.ndarray, ...]:
+        """Parameter model -> regular (ahead, radius) grid; NaN in the machine and bore."""
+        a, r = self.output_grid()
+        aa, rr = np.meshgrid(a, r, indexing="ij")
+        idx = self.grid.locate(aa.ravel(), rr.ravel()).reshape(aa.shape)
+        inside = self._solid(aa, rr)
+        idx = np.where(inside, -1, idx)
+
+        def take(v: np.ndarray | None) -> np.ndarray | None:
+            if v is None:
+                return None
+            out = np.where(idx >= 0, np.asarray(v)[np.maximum(idx, 0)], np.nan)
+            return out
+
+        return a, r, take(img.model_ohmm), take(img.coverage), take(img.doi_index)
+
+    def _solid(self, a: np.ndarray, r: np.ndarray) -> np.ndarray:
+        lay = self.layout
+        big_r, shield = lay.machine.radius_m, lay.machine.shield_length_m
+        solid = np.zeros(a.shape, bool)
+        if lay.machine.model_body:
+            solid |= (a > -shield) & (a < 0) & (r < big_r)
+        if lay.tunnel.model_cavity:
+            tail = -shield if lay.machine.model_body else 0.0
+            tl = lay.tunnel.length_m
+            solid |= (a < tail) & ((a > tail - tl) if math.isfinite(tl) else True) & (r < big_r)
+        return solid
+
+
+_WORKER_INVERTERS: dict[str, DriveInverter] = {}
+
+
+def _remote_image(layout: Layout, settings: InversionSettings, rho_ref_ohmm: float,
+                  adv: AdvanceData) -> ImageResult:
+    """Cold image inversion of one advance on a dask worker.
+
+    The worker keeps one :class:`DriveInverter` per layout and settings, so its mesh, operator
+    and factors are built once per worker, not once per advance.
+    """
+    from tbminv.cache import cache_key
+
+    key = cache_key({"layout": layout.to_dict(), "settings": settings.to_dict()})
+    inv = _WORKER_INVERTERS.get(key)
+    if inv is None:
+        _WORKER_INVERTERS.clear()
+        inv = _WORKER_INVERTERS[key] = DriveInverter(layout, settings)
+    inv.rho_ref_ohmm = rho_ref_ohmm
+    return inv.invert_advance(adv)
+
+
+def _round_sig(v: float, sig: int = 2) -> float:
+    if v <= 0 or not math.isfinite(v):
+        return 100.0
+    e = math.floor(math.log10(v)) - sig + 1
+    return round(v / 10 ** e) * 10 ** e
+
+
+__all__ = ["DriveInverter"]

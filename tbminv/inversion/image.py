@@ -1,0 +1,184 @@
+"""One image inversion of one advance (pyGIMLi Inversion on the axisymmetric operator)."""
+
+from __future__ import annotations
+
+import math
+import time
+from collections.abc import Sequence
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+
+from tbminv.inversion.grid import ParameterGrid
+from tbminv.inversion.operator import DriveOperator, make_pg_modelling
+from tbminv.inversion.settings import InversionError, InversionSettings
+from tbminv.readings.advance import AdvanceData
+
+
+# ------------------------------------------------------------------------ one advance
+@dataclass
+class ImageResult:
+    """Outcome of one image inversion (parameter space)."""
+
+    model_ohmm: np.ndarray
+    chi2: float
+    rrms_percent: float
+    iterations: int
+    lam: float
+    stop_reason: str
+    converged: bool
+    time_s: float
+    chi2_history: list[float]
+    coverage: np.ndarray
+    doi_index: np.ndarray | None
+    n_used: int
+    response_ohmm: np.ndarray
+    data_ohmm: np.ndarray
+    rel_error: np.ndarray
+
+
+def invert_image(op: DriveOperator, data: AdvanceData, k: np.ndarray,
+                 settings: InversionSettings, start_model: np.ndarray | None = None,
+                 reference_model: np.ndarray | None = None) -> ImageResult:
+    """Invert one advance's apparent resistivities on the parameter grid.
+
+    Parameters
+    ----------
+    op : DriveOperator
+    data : AdvanceData
+    k : ndarray
+        Geometric factors per protocol quadrupole, m.
+    settings : InversionSettings
+    start_model : ndarray, optional
+        Starting resistivity per parameter cell, ohm-m (default: median apparent resistivity).
+    reference_model : ndarray, optional
+        Regularise the change from this model (time-lapse mode); it is also the start.
+    """
+    from tbminv.gimli import pg
+
+    t0 = time.perf_counter()
+    rhoa = k * data.r_ohm
+    sel = np.nonzero(np.isfinite(rhoa) & (rhoa > 0) & np.isfinite(data.rel_error)
+                     & (data.rel_error > 0))[0]
+    if sel.size < 3:
+        raise InversionError(f"advance {data.advance}: {sel.size} usable readings; at least 3 "
+                             "are needed")
+    y = rhoa[sel]
+    err = data.rel_error[sel]
+    med = float(np.median(y))
+    if start_model is None:
+        start_model = np.full(op.grid.n_param, med)
+    start_model = np.clip(start_model, settings.lower_ohmm * 1.01, settings.upper_ohmm * 0.99)
+
+    def run(lam: float, factor: float, start: np.ndarray, max_iter: int,
+            reference: np.ndarray | None = None) -> tuple[Any, np.ndarray]:
+        fop = make_pg_modelling(op, sel, k[sel], data.cutterhead_deg)
+        inv = pg.Inversion(fop=fop, verbose=False)
+        inv.dataTrans = pg.trans.TransLog()
+        inv.modelTrans = pg.trans.TransLogLU(settings.lower_ohmm, settings.upper_ohmm)
+        kw: dict[str, Any] = {}
+        if reference is not None:
+            kw["isReference"] = True
+            start = reference
+        model = inv.run(pg.Vector(y), pg.Vector(err), lam=lam, lambdaFactor=factor,
+                        startModel=pg.Vector(start), maxIter=max_iter,
+                        dPhi=settings.min_dphi_percent, stopAtChi1=True, verbose=False, **kw)
+        return inv, np.asarray(model, float)
+
+    ref = None
+    if reference_model is not None:
+        ref = np.clip(np.asarray(reference_model, float), settings.lower_ohmm * 1.01,
+                      settings.upper_ohmm * 0.99)
+    if settings.lambda_rule == "lcurve":
+        best = None
+        pts = []
+        for lam in settings.lcurve_lams:
+            inv, model = run(lam, 1.0, start_model, settings.max_iter, ref)
+            rough = float(np.linalg.norm(np.asarray(inv.fop.constraints() *
+                                                    pg.Vector(np.log(model)))))
+            pts.append((lam, float(inv.chi2()), rough, inv, model))
+        lam_pick = _lcurve_corner([(p[1], p[2]) for p in pts])
+        _, _, _, inv, model = pts[lam_pick]
+        lam_used = settings.lcurve_lams[lam_pick]
+        best = inv
+        inv = best
+    else:
+        factor = settings.lambda_factor if settings.lambda_rule == "cooling" else 1.0
+        inv, model = run(settings.lam, factor, start_model, settings.max_iter, ref)
+        lam_used = float(inv.lam)
+    chi2 = float(inv.chi2())
+    hist = [float(v) for v in inv.chi2History]
+    iters = max(0, len(hist) - 1)
+    # chi-squared per datum of n readings scatters by sqrt(2 / n) between noise realisations;
+    # a last step far below that cannot change the fit detectably: the fit has stagnated
+    step = abs(hist[-1] - hist[-2]) if len(hist) >= 2 else math.inf
+    still = 0.25 * math.sqrt(2.0 / max(int(sel.size), 1))
+    if chi2 <= 1.0 + 1e-9:
+        reason, converged = "chi-squared reached 1", True
+    elif iters >= settings.max_iter and step < still:
+        reason, converged = (f"chi-squared stagnated (last change {step:.3f} < {still:.3f})",
+                             chi2 <= settings.chi2_flag)
+    elif iters >= settings.max_iter:
+        reason, converged = f"iteration limit ({settings.max_iter})", False
+    else:
+        reason, converged = (f"objective improved by less than {settings.min_dphi_percent} %",
+                             chi2 <= settings.chi2_flag)
+    response = np.asarray(inv.response, float) if hasattr(inv, "response") else None
+    if response is None or response.size != y.size:
+        response = k[sel] * op.response(model, data.cutterhead_deg)[sel]
+    # coverage from the Jacobian at the final model
+    _, jac = op.jacobian(model, data.cutterhead_deg)
+    js = jac[sel] / (data.r_ohm[sel][:, None] * err[:, None])   # d ln R / d ln rho / sigma_ln
+    cov = np.log10(np.maximum(np.abs(js).sum(axis=0) / op.grid.volume_m3, 1e-300))
+    doi = None
+    if settings.doi:
+        _, m_lo = run(settings.lam, 1.0, model, 4, reference=np.full_like(model, 0.5 * med))
+        _, m_hi = run(settings.lam, 1.0, model, 4, reference=np.full_like(model, 2.0 * med))
+        doi = np.abs(np.log(m_lo) - np.log(m_hi)) / abs(math.log(0.5) - math.log(2.0))
+    return ImageResult(model, chi2, float(inv.relrms()), iters, lam_used, reason,
+                       converged and chi2 <= settings.chi2_flag, time.perf_counter() - t0,
+                       hist, cov, doi, int(sel.size), response, y, err)
+
+
+def _lcurve_corner(points: Sequence[tuple[float, float]]) -> int:
+    """Index of the point of largest curvature of (log chi2, log roughness)."""
+    if len(points) < 3:
+        return int(np.argmin([p[0] for p in points]))
+    x = np.log(np.maximum([p[0] for p in points], 1e-12))
+    y = np.log(np.maximum([p[1] for p in points], 1e-12))
+    best, kmax = 1, -np.inf
+    for i in range(1, len(points) - 1):
+        a = np.array([x[i - 1] - x[i], y[i - 1] - y[i]])
+        b = np.array([x[i + 1] - x[i], y[i + 1] - y[i]])
+        ang = abs(np.arctan2(a[0] * b[1] - a[1] * b[0], a @ b))
+        curv = np.pi - ang
+        if curv > kmax:
+            best, kmax = i, curv
+    return best
+
+
+def shift_model(grid: ParameterGrid, model: np.ndarray, advance_m: float) -> np.ndarray:
+    """The previous advance's model moved by ``advance_m`` towards the machine.
+
+    A ground point now ``a`` ahead of the face was ``a + advance_m`` ahead before; values are
+    interpolated in log resistivity (nearest ground cell where the old grid has a hole or ends).
+    """
+    from scipy.interpolate import NearestNDInterpolator, RegularGridInterpolator
+
+    xc = 0.5 * (grid.x_nodes[:-1] + grid.x_nodes[1:])
+    rc = 0.5 * (grid.r_nodes[:-1] + grid.r_nodes[1:])
+    full = np.full(grid.keep.size, np.nan)
+    full[grid.keep] = np.log(model)
+    near = NearestNDInterpolator(grid.centers, np.log(model))
+    holes = ~grid.keep
+    cx, cr = np.meshgrid(xc, rc)
+    full[holes] = near(cx.ravel()[holes], cr.ravel()[holes])
+    interp = RegularGridInterpolator((rc, xc), full.reshape(rc.size, xc.size),
+                                     bounds_error=False, fill_value=None)
+    pts = np.column_stack([grid.centers[:, 1], np.clip(grid.centers[:, 0] + advance_m,
+                                                       xc[0], xc[-1])])
+    return np.exp(interp(pts))
+
+
+__all__ = ["ImageResult", "invert_image", "shift_model"]

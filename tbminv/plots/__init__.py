@@ -1,0 +1,1 @@
+"""Figures (matplotlib; saved as PDF and PNG): section, reach, QC, method comparison."""

@@ -1,0 +1,1 @@
+"""Readings: the log reader and its quarantine, the QC and error model, one advance's data."""

@@ -1,0 +1,1 @@
+"""Studies on the side of the shift chain: synthetic drives, reach, sweeps, method comparison."""
