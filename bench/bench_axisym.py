@@ -18,7 +18,7 @@ from pathlib import Path
 import numpy as np
 
 from tbminv.forward.axisym.fields import HAVE_CHOLMOD, AxisymSettings
-from tbminv.forward.axisym.layout import LayoutAxisym
+from tbminv.forward.axisym.layout import AxisymLayoutSolver
 from tbminv.forward.axisym.mesh import CylMeshSettings
 from tbminv.ground import Scenario
 from tbminv.layout import demo_layout_path, load_layout
@@ -36,7 +36,7 @@ def protocol_layout(n: int = 24):
 
 def run_case(lay, sc, settings, jac=True, extra_x=()):
     t0 = time.perf_counter()
-    model = LayoutAxisym(lay, face_chainage_m=FACE, settings=settings,
+    model = AxisymLayoutSolver(lay, face_chainage_m=FACE, settings=settings,
                                       extra_x=extra_x)
     t_build = time.perf_counter() - t0
     rho = model.ground_resistivity(sc, FACE)

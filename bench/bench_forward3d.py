@@ -73,14 +73,14 @@ def run_case(level: str, p2: bool, body: bool) -> dict:
     import numpy as np
 
     from tbminv.forward.fem3d.mesh import MeshSettings, electrode_points
-    from tbminv.forward.fem3d.model import Forward3D, ForwardSettings
+    from tbminv.forward.fem3d.model import Fem3DSettings, Forward3D
     from tbminv.ground import Scenario
 
     os.environ["TBMINV_CACHE_DIR"] = os.environ.get("TBMINV_BENCH_CACHE", "/tmp/tbminv-bench")
     lay = _layout(body)
     quads = _quads()
     ms = MeshSettings(**LEVELS[level])
-    fw = Forward3D(lay, ForwardSettings(p2=p2, mesh=ms, cache_meshes=False))
+    fw = Forward3D(lay, Fem3DSettings(p2=p2, mesh=ms, cache_meshes=False))
     t = time.perf_counter()
     res = fw.run(Scenario.homogeneous(100.0), FACE, 0.0, quads)
     wall = time.perf_counter() - t

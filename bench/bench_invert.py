@@ -69,7 +69,7 @@ def _time_solver() -> None:
     """
     from tbminv.forward.axisym import layout as axisym
 
-    orig = axisym.AxisymForward._factor
+    orig = axisym.AxisymSolver._factor
 
     def factor(self, m, a_red, _orig=orig):
         t = time.perf_counter()
@@ -84,7 +84,7 @@ def _time_solver() -> None:
 
         return solve
 
-    axisym.AxisymForward._factor = factor
+    axisym.AxisymSolver._factor = factor
 
 
 def run_ours(advances: list[int], time_lapse: bool) -> dict:

@@ -50,7 +50,7 @@ def main() -> None:
                                                                        3)))
     recs = methods.run_axisym(drive, InversionSettings(max_iter=6, contact=contact),
                               model=axisym, label="cooling lam=100", distance="both")
-    recs += methods.run_section25d(drive, methods.SectionInversionSettings(),
+    recs += methods.run_cartesian25d(drive, methods.Cartesian25DInversionSettings(),
                                    label="lam=2 cooling, floor 10%", error_floor=0.10)
     recs += methods.run_region3d(drive, methods.Region3DSettings(max_iter=4),
                                  label="4 slabs, smoothness 30")

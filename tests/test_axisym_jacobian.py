@@ -8,7 +8,7 @@ import pytest
 
 from tbminv.forward.axisym.fields import AxElectrode, AxisymSettings
 from tbminv.forward.axisym.mesh import CylGeometry, CylMeshSettings
-from tbminv.forward.axisym.solver import AxisymForward
+from tbminv.forward.axisym.solver import AxisymSolver
 
 GEO = CylGeometry(machine_radius_m=3.1, shield_length_m=9.5, tunnel_length_m=20.0)
 MESH = CylMeshSettings(h_fine_m=0.1, growth=1.3, domain_m=200.0)
@@ -20,7 +20,7 @@ def case():
     els = [AxElectrode("A", 0.2, 1.0, 0.0), AxElectrode("M", 0.2, 2.5, 90.0),
            AxElectrode("B", -3.0, 3.4, 180.0), AxElectrode("N", 3.0, 0.0, 0.0),
            AxElectrode("S", on_steel=True)]
-    f = AxisymForward(els, ["A", "B", "S"], ["M", "N", "S"], GEO, AxisymSettings(mesh=MESH))
+    f = AxisymSolver(els, ["A", "B", "S"], ["M", "N", "S"], GEO, AxisymSettings(mesh=MESH))
     rng = np.random.default_rng(1)
     rho = np.exp(rng.normal(np.log(100.0), 0.3, len(f.ground_cells)))
     for lab in ("A", "B"):  # cells around a current electrode share one resistivity

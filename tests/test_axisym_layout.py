@@ -9,7 +9,7 @@ import pytest
 
 from tbminv.forward.analytic import layout_response
 from tbminv.forward.axisym.fields import AxisymSettings
-from tbminv.forward.axisym.layout import AxisymModel, LayoutAxisym
+from tbminv.forward.axisym.layout import AxisymLayoutSolver, AxisymModel
 from tbminv.forward.axisym.mesh import CylMeshSettings
 from tbminv.ground import NotAxisymmetricError, Scenario
 from tbminv.layout import Layout
@@ -48,7 +48,7 @@ def test_from_layout_matches_closed_form_without_body():
     lay = _layout(model_body=False, model_cavity=False)
     lay = Layout.from_dict({**lay.to_dict(), "measurement": [
         {"a": "C1", "b": "C2", "m": "C3", "n": "S1"}]}, source="<test>")
-    model = LayoutAxisym(lay, settings=COARSE)
+    model = AxisymLayoutSolver(lay, settings=COARSE)
     sc = Scenario.homogeneous(40.0)
     for ch in (0.0, 37.0):
         r = model.response_scenario(sc, 1000.0, cutterhead_deg=ch)
@@ -58,7 +58,7 @@ def test_from_layout_matches_closed_form_without_body():
 
 def test_from_layout_with_steel_and_bare_electrode():
     lay = _layout()
-    model = LayoutAxisym(lay, settings=COARSE)
+    model = AxisymLayoutSolver(lay, settings=COARSE)
     r = model.response_scenario(Scenario.homogeneous(100.0), 500.0)
     assert r.shape == (len(lay.measurements),)
     assert np.all(np.isfinite(r))
@@ -72,7 +72,7 @@ def test_from_layout_with_steel_and_bare_electrode():
 
 def test_not_axisymmetric_scenario_is_refused():
     lay = _layout()
-    model = LayoutAxisym(lay, settings=COARSE)
+    model = AxisymLayoutSolver(lay, settings=COARSE)
     sc = Scenario.from_dict({"background_resistivity_ohmm": 50.0,
                              "sphere": [{"chainage_m": 20.0, "y_m": 2.0, "z_m": 0.0,
                                          "radius_m": 1.0, "resistivity_ohmm": 5.0}]})
@@ -84,17 +84,17 @@ def test_modelling_inversion_smoke():
     """pyGIMLi's Inversion on the axisymmetric Modelling recovers a homogeneous ground
     (invariant: homogeneous ground returns its resistivity; common practice, no source)."""
     from tbminv.gimli import pg
-    from tbminv.inversion.operator import AxisymModelling, build_parameter_grid
+    from tbminv.inversion.operator import ImageModelling, build_parameter_grid
 
     lay = _layout()
-    model = LayoutAxisym(lay, settings=COARSE)
+    model = AxisymLayoutSolver(lay, settings=COARSE)
     grid = build_parameter_grid(model, x_edges=[-12, -6, -3, 1.0, 3, 6, 12, 30],
                                 r_edges=[1.0, 2.0, 4.0, 8.0, 20.0])
     # numeric geometric factors from a homogeneous run with the bodies in (k = rho / R)
     r1 = model.response(np.full(len(model.forward.ground_cells), 100.0))
     sel = np.nonzero(r1 > 0)[0]
     k = 100.0 / r1[sel]
-    fop = AxisymModelling(model, grid, scale=k, select=sel)
+    fop = ImageModelling(model, grid, scale=k, select=sel)
     data = np.asarray(fop.response(np.full(grid.n_param, 100.0)))
     np.testing.assert_allclose(data, 100.0, rtol=1e-8)
     # the Jacobian is filled and not zero
@@ -139,7 +139,7 @@ def test_scenario_contact_fitted_to_mesh_line(contact_ahead_m):
         {"a": "C1", "b": "R", "m": "C3", "n": "R"}]}, source="<test>")
     close = contact_ahead_m < 1.0
     settings = AxisymSettings(near_field_m=0.1, harmonic_factor=5.0) if close else None
-    model = LayoutAxisym(lay, settings=settings)
+    model = AxisymLayoutSolver(lay, settings=settings)
     face = 100.0
     for rho2 in (400.0, 4.0):
         sc = Scenario.from_dict({"background_resistivity_ohmm": 40.0, "contact": [

@@ -9,7 +9,7 @@ import pytest
 
 from tbminv.forward.analytic import contact_potential
 from tbminv.forward.axisym.fields import AxElectrode, AxisymSettings
-from tbminv.forward.axisym.solver import AxisymForward
+from tbminv.forward.axisym.solver import AxisymSolver
 
 D = 6.0  # machine diameter used to scale distances, m (common practice for a mid-size TBM)
 
@@ -41,7 +41,7 @@ def test_homogeneous_full_space(sr):
     # the plain point-load field needs a finer mesh near the sources
     mesh = CylMeshSettings() if sr else CylMeshSettings(h_fine_m=0.02, growth=1.1)
     settings = AxisymSettings(mesh=mesh, singularity_removal=sr, min_harmonics=2 if sr else 40)
-    f = AxisymForward(srcs + recs, ["A", "B"], [e.label for e in recs], settings=settings)
+    f = AxisymSolver(srcs + recs, ["A", "B"], [e.label for e in recs], settings=settings)
     sol = f.solve(np.full(len(f.ground_cells), 50.0))
     g = sol.potentials()
     for js, es in enumerate(f.sources):
@@ -57,7 +57,7 @@ def test_potentials_any_azimuth():
     """The harmonic fields do not depend on the azimuths: turning both electrodes together
     leaves the potential unchanged; turning one follows 1/R (full-space formula)."""
     els = [AxElectrode("A", 0.05, 1.5, 0.0), AxElectrode("M", 0.05, 2.5, 30.0)]
-    f = AxisymForward(els, ["A"], ["M"])
+    f = AxisymSolver(els, ["A"], ["M"])
     sol = f.solve(np.full(len(f.ground_cells), 10.0))
     for th_a, th_m in ((0.0, 30.0), (100.0, 130.0), (0.0, 170.0)):
         g = sol.potentials({"A": th_a, "M": th_m})[0, 0]
@@ -77,7 +77,7 @@ def test_plane_contact_square_to_axis(ratio, dist_d):
     pts = [(0.05, 1.2, 0.0), (0.05, 2.8, 90.0), (0.05, 2.8, 180.0), (-3.0, 3.2, 0.0),
            (c - 0.5, 1.0, 45.0), (c + 0.5, 1.0, 180.0), (c + 3.0, 0.0, 0.0), (0.5 * c, 2.0, 0.0)]
     recs = [AxElectrode(f"R{i}", x, r, t) for i, (x, r, t) in enumerate(pts)]
-    f = AxisymForward(srcs + recs, ["A", "B"], [e.label for e in recs], extra_x=[c])
+    f = AxisymSolver(srcs + recs, ["A", "B"], [e.label for e in recs], extra_x=[c])
     xc = f.ground_centers()[:, 0]
     rho = np.where(xc > c, 100.0 * ratio, 100.0)
     g = f.solve(rho).potentials()
@@ -135,7 +135,7 @@ def test_sphere_on_axis(rho2):
     recs = [AxElectrode(f"R{i}", x, r, t) for i, (x, r, t) in enumerate(pts)]
     lines_x = list(np.arange(x0 - a, x0 + a + 1e-9, 0.1))
     lines_r = list(np.arange(0.1, a + 1e-9, 0.1))
-    from tbminv.forward.axisym.solver import AxisymForward as F
+    from tbminv.forward.axisym.solver import AxisymSolver as F
 
     f = F(srcs + recs, ["A"], [e.label for e in recs], extra_x=lines_x, extra_r=lines_r)
     g = f.solve(_sphere_rho(f, x0, a, rho1, rho2)).potentials()

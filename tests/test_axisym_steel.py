@@ -9,7 +9,7 @@ import pytest
 
 from tbminv.forward.axisym.fields import AxElectrode, AxisymSettings
 from tbminv.forward.axisym.mesh import CylGeometry, CylMeshSettings
-from tbminv.forward.axisym.solver import AxisymForward
+from tbminv.forward.axisym.solver import AxisymSolver
 
 GEO = CylGeometry(machine_radius_m=3.1, shield_length_m=9.5, tunnel_length_m=30.0)
 MESH = CylMeshSettings(h_fine_m=0.05, growth=1.2)
@@ -21,7 +21,7 @@ LABELS = [e.label for e in ELS]
 
 def _potentials(**kw):
     s = AxisymSettings(mesh=MESH, max_harmonics=60, **kw)
-    f = AxisymForward(ELS, LABELS, LABELS, GEO, s)
+    f = AxisymSolver(ELS, LABELS, LABELS, GEO, s)
     return f.solve(np.full(len(f.ground_cells), 100.0)).potentials()
 
 
@@ -74,5 +74,5 @@ def test_insulated_face_electrode_near_machine_potential(perfect):
 
 def test_electrode_on_steel_is_refused():
     with pytest.raises(ValueError, match="on the steel"):
-        AxisymForward([AxElectrode("X", -2.0, 1.0)], ["X"], ["X"], GEO,
+        AxisymSolver([AxElectrode("X", -2.0, 1.0)], ["X"], ["X"], GEO,
                       AxisymSettings(mesh=MESH))

@@ -14,7 +14,7 @@ import numpy as np
 import pytest
 
 from tbminv.forward.fem3d.mesh import MeshSettings, TunnelGeometry, build_mesh, electrode_points
-from tbminv.forward.fem3d.model import Forward3D, ForwardSettings, unit_potentials
+from tbminv.forward.fem3d.model import Fem3DSettings, Forward3D, unit_potentials
 from tbminv.forward.ratio import apparent_resistivity, geometric_factors
 from tbminv.gimli import configure_operator, ert, pg
 from tbminv.ground import Scenario
@@ -183,7 +183,7 @@ def test_reciprocity_and_steel_with_body():
              ("M0", "R2", "C1", "R1"), ("S2", "R2", "W1", "R1")]
     quads += [(m, n, a, b) for a, b, m, n in quads]
     quads += [("SB", "R2", "C1", "R1"), ("C1", "R2", "M0", "R1"), ("C1", "R2", "SB", "R1")]
-    st = ForwardSettings(mesh=SMALL, use_reciprocity=False)  # every A/B pair really solved
+    st = Fem3DSettings(mesh=SMALL, use_reciprocity=False)  # every A/B pair really solved
     r = Forward3D(lay, st).run(Scenario.homogeneous(100.0), FACE, 0.0, quads).r_ohm
     n = 5
     assert np.all(np.abs(r[:n]) > 0)
@@ -202,14 +202,14 @@ def test_machine_resistivity_convergence():
     assert lay.machine.body_resistivity_ohmm == 1e-5
     quads = [("C1", "S2", "C2", "W1"), ("C1", "R2", "S1", "R1"), ("M0", "R2", "C1", "R1"),
              ("S1", "R2", "W1", "R1")]
-    fw = Forward3D(lay, ForwardSettings(p2=False, mesh=SMALL))
+    fw = Forward3D(lay, Fem3DSettings(p2=False, mesh=SMALL))
     tm = fw.mesh(None, FACE)
     from tbminv.forward.fem3d.model import cell_resistivity
     caps = [1e-2, 1e-3, 1e-4, 1e-5, 1e-6]
     out = {}
     for cap in caps:
         out[cap] = fw.run(Scenario.homogeneous(100.0), FACE, 0.0, quads).r_ohm if cap == 1e-5 \
-            else Forward3D(lay, ForwardSettings(p2=False, mesh=SMALL,
+            else Forward3D(lay, Fem3DSettings(p2=False, mesh=SMALL,
                                                 body_resistivity_ohmm=cap)).run(
                 Scenario.homogeneous(100.0), FACE, 0.0, quads).r_ohm
     ref = out[1e-6]
@@ -229,7 +229,7 @@ def test_geometric_factors_homogeneous(tmp_path, monkeypatch):
     lay = make_layout(body=True, cavity=False, extra=STEEL_EXTRA)
     quads = [("C1", "S2", "C2", "W1"), ("C1", "R2", "S1", "R1"), ("M0", "R2", "C1", "R1"),
              ("S1", "R2", "W1", "R1"), ("C1", None, "C3", None)]
-    st = ForwardSettings(p2=False, mesh=SMALL)
+    st = Fem3DSettings(p2=False, mesh=SMALL)
     k = geometric_factors(lay, quads, FACE, settings=st)
     assert np.all(np.isfinite(k))
     assert list((tmp_path / "geofactor").glob("*.json"))

@@ -170,7 +170,7 @@ def test_image_contact_reads_the_axis_column():
 def test_p1_simulation_hook_matches_the_3d_model():
     # the registered "3d-p1" model is pyGIMLi's 3D forward with linear elements, and obeys
     # reciprocity (swap current and potential pairs) like any linear resistor network
-    from tbminv.forward.fem3d.model import ForwardSettings, forward3d
+    from tbminv.forward.fem3d.model import Fem3DSettings, forward3d
     from tbminv.ground import Scenario
     from tbminv.studies.simulate import get_model
 
@@ -180,8 +180,8 @@ def test_p1_simulation_hook_matches_the_3d_model():
     recip = [(m, n, a, b) for a, b, m, n in quads]
     sc = Scenario.homogeneous(100.0)
     r = get_model("3d-p1")(lay, sc, 1222.0, 0.0, quads)
-    ref = forward3d(lay, sc, 1222.0, 0.0, quads, settings=ForwardSettings(p2=False))
+    ref = forward3d(lay, sc, 1222.0, 0.0, quads, settings=Fem3DSettings(p2=False))
     np.testing.assert_allclose(r, ref, rtol=1e-12)
     rr = forward3d(lay, sc, 1222.0, 0.0, recip,
-                   settings=ForwardSettings(p2=False, use_reciprocity=False))
+                   settings=Fem3DSettings(p2=False, use_reciprocity=False))
     np.testing.assert_allclose(rr, r, rtol=0.01)

@@ -5,7 +5,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from tbminv.forward.cartesian25d import Section25DSettings, SectionModel
+from tbminv.forward.cartesian25d import Cartesian25DModel, Cartesian25DSettings
 from tbminv.forward.registry import make_model
 from tbminv.ground import Scenario
 from tbminv.layout import Layout
@@ -34,7 +34,7 @@ def test_half_space_matches_image_solution():
     # 1990, Applied Geophysics 2nd ed., sec. 8.3). pyGIMLi 2.5D, sr=False, 5 cm refinement
     # nodes around electrodes, quality 34, max area 50 m^2: within 2.5 %.
     lay = layout(model_body=False)
-    r = SectionModel(lay, Section25DSettings(ratio_correction=False)).response(
+    r = Cartesian25DModel(lay, Cartesian25DSettings(ratio_correction=False)).response(
         Scenario.homogeneous(100.0), 0.0)
     expected = make_model("analytic", lay).response(Scenario.homogeneous(100.0), 0.0)
     np.testing.assert_allclose(r, expected, rtol=0.025)
@@ -42,7 +42,7 @@ def test_half_space_matches_image_solution():
 
 def test_projection_moves_side_electrodes_off_the_slab():
     lay = layout(model_body=True)
-    proj = SectionModel(lay).projected_positions(0.0)
+    proj = Cartesian25DModel(lay).projected_positions(0.0)
     # angle 90 deg projects to z = 0, inside the steel slab: moved to the crown face + offset
     assert proj["S"][1] == pytest.approx(3.0 + 0.05)
     assert proj["N"][1] == pytest.approx(-3.1)
@@ -52,8 +52,8 @@ def test_projection_moves_side_electrodes_off_the_slab():
 def test_steel_slab_bias_is_large():
     # the known bias: the slab is earthed across the whole section, so potentials near the
     # machine fall far below the same layout without steel
-    with_steel = SectionModel(layout(True), Section25DSettings(ratio_correction=False))
-    without = SectionModel(layout(False), Section25DSettings(ratio_correction=False))
+    with_steel = Cartesian25DModel(layout(True), Cartesian25DSettings(ratio_correction=False))
+    without = Cartesian25DModel(layout(False), Cartesian25DSettings(ratio_correction=False))
     hom = Scenario.homogeneous(100.0)
     ratio = with_steel.response(hom, 0.0)[0] / without.response(hom, 0.0)[0]
     assert ratio < 0.5

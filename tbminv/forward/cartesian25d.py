@@ -10,7 +10,7 @@ the ground ahead. Use it to compare methods, not for decisions.
 
 Electrodes off the plane are projected on it at ``z = r cos(angle)``; a projection that falls inside
 the steel slab is moved to the nearer slab face (crown or invert side) plus ``electrode_offset_m``.
-The projected positions are reported by :meth:`SectionModel.projected_positions`.
+The projected positions are reported by :meth:`Cartesian25DModel.projected_positions`.
 
 pyGIMLi's mixed boundary condition assumes a ground surface at ``y = 0`` of its mesh: the surface is
 put there (at the layout's cover above the crown), and a deep tunnel (``cover_m = inf``) is placed
@@ -36,7 +36,7 @@ GROUND, MACHINE, TUNNEL = 1, 2, 3
 
 
 @dataclass(frozen=True)
-class Section25DSettings:
+class Cartesian25DSettings:
     """Mesh and model settings of the Cartesian 2.5D section (m, ohm-m).
 
     Attributes
@@ -69,7 +69,7 @@ class Section25DSettings:
     rho_ref_ohmm: float = 100.0
 
 
-class SectionModel:
+class Cartesian25DModel:
     """Cartesian 2.5D forward model of a layout (see the module docstring).
 
     Parameters
@@ -80,10 +80,10 @@ class SectionModel:
         The 3D model for the ratio correction (built on first use if not given).
     """
 
-    def __init__(self, layout: Layout, settings: Section25DSettings | None = None,
+    def __init__(self, layout: Layout, settings: Cartesian25DSettings | None = None,
                  reference: Any | None = None, **_: Any) -> None:
         self.layout = layout
-        self.settings = settings or Section25DSettings()
+        self.settings = settings or Cartesian25DSettings()
         self._reference = reference
         self._meshes: dict[tuple, tuple[Any, np.ndarray, dict[str, int]]] = {}
         self._ratio: dict[tuple, np.ndarray] = {}
@@ -232,4 +232,4 @@ class SectionModel:
         return r
 
 
-__all__ = ["SectionModel", "Section25DSettings"]
+__all__ = ["Cartesian25DModel", "Cartesian25DSettings"]

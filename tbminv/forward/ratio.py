@@ -29,7 +29,7 @@ from typing import Any
 import numpy as np
 
 from tbminv.cache import atomic_write_text, cache_dir, cache_key
-from tbminv.forward.fem3d.model import Forward3D, ForwardSettings, _quads
+from tbminv.forward.fem3d.model import Fem3DSettings, Forward3D, _quads
 from tbminv.ground import Scenario
 
 _LOG = logging.getLogger(__name__)
@@ -40,7 +40,7 @@ GEOFACTOR_FORMAT = 1
 def geometric_factors(layout: Any, measurements: Sequence[Any] | None = None,
                       face_chainage_m: float = 0.0, cutterhead_deg: float = 0.0,
                       reference_resistivity_ohmm: float = 100.0,
-                      settings: ForwardSettings | None = None,
+                      settings: Fem3DSettings | None = None,
                       use_cache: bool = True) -> np.ndarray:
     """Numeric geometric factors ``k`` (m) of a layout's readings.
 
@@ -55,7 +55,7 @@ def geometric_factors(layout: Any, measurements: Sequence[Any] | None = None,
         Cutterhead angle, degrees.
     reference_resistivity_ohmm : float
         Resistivity of the homogeneous reference ground, ohm-m.
-    settings : ForwardSettings, optional
+    settings : Fem3DSettings, optional
     use_cache : bool
 
     Returns
@@ -66,7 +66,7 @@ def geometric_factors(layout: Any, measurements: Sequence[Any] | None = None,
     if not reference_resistivity_ohmm > 0:
         raise ValueError(f"reference_resistivity_ohmm = {reference_resistivity_ohmm!r}: "
                          "expected > 0")
-    s = settings or ForwardSettings()
+    s = settings or Fem3DSettings()
     quads = _quads(layout, measurements)
     key = cache_key({"format": GEOFACTOR_FORMAT, "layout": layout.to_dict(),
                      "quads": [list(q) for q in quads], "face": float(face_chainage_m),
@@ -123,7 +123,7 @@ def surface_factors(layout: Any, face_chainage_m: float, cutterhead_deg: float =
     rho_ohmm : float
         Resistivity of the homogeneous ground of the two runs, ohm-m (the factor depends on it
         only through the contrast with the lining and the steel).
-    settings : tbminv.forward3d.ForwardSettings, optional
+    settings : tbminv.forward3d.Fem3DSettings, optional
         Settings of the two 3D runs (default: P2, the default mesh).
     use_cache : bool
         Read and write the factor cache.
@@ -136,10 +136,10 @@ def surface_factors(layout: Any, face_chainage_m: float, cutterhead_deg: float =
     n = len(layout.measurements)
     if not needs_correction(layout):
         return np.ones(n)
-    from tbminv.forward.fem3d.model import Forward3D, ForwardSettings
+    from tbminv.forward.fem3d.model import Fem3DSettings, Forward3D
     from tbminv.ground import Scenario
 
-    fs = settings or ForwardSettings()
+    fs = settings or Fem3DSettings()
     # with every electrode travelling with the machine (or at infinity) the geometry under a
     # surface parallel to the axis is the same at every face: one factor set serves the drive
     fixed = any(e.fixed_in_ground for e in layout.electrodes)

@@ -25,7 +25,7 @@ import numpy as np
 
 from tbminv.forward.analytic import AnalyticModel
 from tbminv.forward.axisym.layout import AxisymModel
-from tbminv.forward.cartesian25d import SectionModel
+from tbminv.forward.cartesian25d import Cartesian25DModel
 from tbminv.forward.fem3d.model import Model3D
 from tbminv.ground import Scenario
 from tbminv.layout import Layout
@@ -52,7 +52,7 @@ _FACTORIES: dict[str, Callable[..., ForwardModel]] = {
     "analytic": AnalyticModel,
     "axisym": AxisymModel,
     "3d": Model3D,
-    "section": SectionModel,
+    "section": Cartesian25DModel,
 }
 
 

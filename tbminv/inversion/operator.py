@@ -19,7 +19,7 @@ from typing import Any
 import numpy as np
 import scipy.sparse as sp
 
-from tbminv.forward.axisym.layout import LayoutAxisym
+from tbminv.forward.axisym.layout import AxisymLayoutSolver
 from tbminv.gimli import pg
 from tbminv.inversion.grid import ParameterGrid
 from tbminv.inversion.settings import InversionError
@@ -72,13 +72,13 @@ def _snap(edges: Sequence[float], lines: np.ndarray, avoid: Sequence[float],
     return np.array(sorted(out))
 
 
-def build_parameter_grid(model: LayoutAxisym, x_edges: Sequence[float],
+def build_parameter_grid(model: AxisymLayoutSolver, x_edges: Sequence[float],
                          r_edges: Sequence[float]) -> AxisymParameterGrid:
     """Parameter grid of the ground for an axisymmetric layout model.
 
     Parameters
     ----------
-    model : LayoutAxisym
+    model : AxisymLayoutSolver
     x_edges, r_edges : sequence of float
         Wanted grid lines, m (machine frame). They are snapped to forward-mesh lines, the
         domain ends and the machine and bore edges are added, and lines through an electrode
@@ -123,12 +123,12 @@ def build_parameter_grid(model: LayoutAxisym, x_edges: Sequence[float],
     return AxisymParameterGrid(xs, rs, keep, mesh, mapping)
 
 
-class AxisymModelling(pg.Modelling):
+class ImageModelling(pg.Modelling):
     """pyGIMLi forward operator of the axisymmetric model on a parameter grid.
 
     Parameters
     ----------
-    model : LayoutAxisym
+    model : AxisymLayoutSolver
         The layout model (mesh and protocol).
     grid : AxisymParameterGrid
         Parameter cells.
@@ -146,7 +146,7 @@ class AxisymModelling(pg.Modelling):
     The Jacobian matrix is allocated once and filled in place.
     """
 
-    def __init__(self, model: LayoutAxisym, grid: AxisymParameterGrid,
+    def __init__(self, model: AxisymLayoutSolver, grid: AxisymParameterGrid,
                  cutterhead_deg: float | None = None, scale: np.ndarray | None = None,
                  select: np.ndarray | None = None) -> None:
         super().__init__()
@@ -202,12 +202,12 @@ class DriveOperator:
         self.grid = grid
         self.face_chainage_m = face_chainage_m
         self.cutterhead_deg = cutterhead_deg
-        from tbminv.forward.axisym.layout import LayoutAxisym
+        from tbminv.forward.axisym.layout import AxisymLayoutSolver
 
         # an instance of our own: filling a scenario moves grid lines of a shared model
         # the forward mesh carries every parameter-grid line (with the parameter cell size as
         # its local spacing), so that each parameter cell is a union of forward cells
-        self.fwd = LayoutAxisym(layout, cutterhead_deg, face_chainage_m,
+        self.fwd = AxisymLayoutSolver(layout, cutterhead_deg, face_chainage_m,
                                 getattr(model, "settings", None),
                                 extra_x=_keypoints(grid.x_nodes),
                                 extra_r=_keypoints(grid.r_nodes)[1:])
@@ -251,12 +251,12 @@ def _keypoints(nodes: np.ndarray) -> list[tuple[float, float]]:
 def make_pg_modelling(op: DriveOperator, sel: np.ndarray, k: np.ndarray,
                       cutterhead_deg: float) -> Any:
     """A :class:`pygimli.Modelling` of apparent resistivities ``k R`` of readings ``sel``."""
-    from tbminv.inversion.operator import AxisymModelling, AxisymParameterGrid
+    from tbminv.inversion.operator import AxisymParameterGrid, ImageModelling
 
     grid = AxisymParameterGrid(op.grid.x_nodes, op.grid.r_nodes, op.grid.keep, op.grid.mesh,
                                op.P)
-    return AxisymModelling(op.fwd, grid, cutterhead_deg=cutterhead_deg, scale=k, select=sel)
+    return ImageModelling(op.fwd, grid, cutterhead_deg=cutterhead_deg, scale=k, select=sel)
 
 
-__all__ = ["AxisymParameterGrid", "build_parameter_grid", "AxisymModelling", "DriveOperator",
+__all__ = ["AxisymParameterGrid", "build_parameter_grid", "ImageModelling", "DriveOperator",
            "make_pg_modelling"]

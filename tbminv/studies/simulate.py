@@ -70,12 +70,12 @@ def _model_section(layout: Any, scenario: Any, face_chainage_m: float, cutterhea
 
     Reciprocal readings take their normal's value (reciprocity of the finite-element operator).
     """
-    from tbminv.forward.cartesian25d import SectionModel
+    from tbminv.forward.cartesian25d import Cartesian25DModel
 
     model = _SECTION_CACHE.get(id(layout))
     if model is None:
         _SECTION_CACHE.clear()
-        model = _SECTION_CACHE[id(layout)] = SectionModel(layout)
+        model = _SECTION_CACHE[id(layout)] = Cartesian25DModel(layout)
     r = model.response(scenario, face_chainage_m, cutterhead_deg)
     index = {q.labels(): i for i, q in enumerate(layout.measurements)}
     out = np.empty(len(measurements))

@@ -118,7 +118,7 @@ class AxisymSettings:
     fit_contacts : bool
         Before a scenario fills the mesh, move the nearest free mesh line onto each contact
         square to the axis (cells then lie on one side; see
-        :meth:`AxisymForward.fit_x_lines`).
+        :meth:`AxisymSolver.fit_x_lines`).
 
     """
 

@@ -12,7 +12,7 @@ import numpy as np
 
 from tbminv.forward.axisym.fields import AxElectrode, AxisymSettings, _warn_once
 from tbminv.forward.axisym.mesh import CylGeometry, CylMesh
-from tbminv.forward.axisym.solver import AxisymForward
+from tbminv.forward.axisym.solver import AxisymSolver
 
 _LOG = logging.getLogger(__name__)
 _WARNED: set[tuple] = set()
@@ -60,7 +60,7 @@ def _as_measurements(items: Sequence[Any]) -> list[Any]:
     return out
 
 
-class LayoutAxisym:
+class AxisymLayoutSolver:
     """The axisymmetric model of a layout: mesh, protocol and ground filling.
 
     Parameters
@@ -131,7 +131,7 @@ class LayoutAxisym:
                     raise ValueError(f"{layout.source}: measurement {q} uses {s_!r} for current "
                                      "and potential")
         self.settings = settings or AxisymSettings()
-        self.forward = AxisymForward(
+        self.forward = AxisymSolver(
             els, srcs, recs, geo, self.settings,
             steel_resistivity_ohmm=mach.body_resistivity_ohmm,
             tunnel_resistivity_ohmm=tun.lining_resistivity_ohmm, extra_x=extra_x,
@@ -232,16 +232,16 @@ class LayoutAxisym:
 class AxisymModel:
     """Forward model ``axisym`` for the model registry (:mod:`tbminv.models`).
 
-    Builds one :class:`LayoutAxisym` per set of electrode positions in the machine frame
+    Builds one :class:`AxisymLayoutSolver` per set of electrode positions in the machine frame
     (the same for every advance unless electrodes are fixed in the ground) and caches it.
     """
 
     def __init__(self, layout: Any, settings: AxisymSettings | None = None, **_: Any) -> None:
         self.layout = layout
         self.settings = settings or AxisymSettings()
-        self._cache: dict[tuple, LayoutAxisym] = {}
+        self._cache: dict[tuple, AxisymLayoutSolver] = {}
 
-    def model_for(self, face_chainage_m: float, cutterhead_deg: float = 0.0) -> LayoutAxisym:
+    def model_for(self, face_chainage_m: float, cutterhead_deg: float = 0.0) -> AxisymLayoutSolver:
         """The (cached) axisymmetric model for a face chainage."""
         cyl = self.layout.positions_cylindrical(cutterhead_deg, face_chainage_m)
         key = tuple(sorted((k, round(v[0], 9), round(v[1], 9)) for k, v in cyl.items()
@@ -249,7 +249,7 @@ class AxisymModel:
         if key not in self._cache:
             if len(self._cache) > 8:
                 self._cache.clear()
-            self._cache[key] = LayoutAxisym(self.layout, cutterhead_deg, face_chainage_m,
+            self._cache[key] = AxisymLayoutSolver(self.layout, cutterhead_deg, face_chainage_m,
                                             self.settings)
         return self._cache[key]
 
@@ -260,7 +260,7 @@ class AxisymModel:
         return model.response_scenario(scenario, face_chainage_m, cutterhead_deg)
 
 
-_SIM_CACHE: dict[tuple, LayoutAxisym] = {}
+_SIM_CACHE: dict[tuple, AxisymLayoutSolver] = {}
 
 
 def simulate_model(layout: Any, scenario: Any, face_chainage_m: float, cutterhead_deg: float,
@@ -279,9 +279,9 @@ def simulate_model(layout: Any, scenario: Any, face_chainage_m: float, cutterhea
     if model is None:
         if len(_SIM_CACHE) > 8:
             _SIM_CACHE.clear()
-        model = _SIM_CACHE[key] = LayoutAxisym(layout, cutterhead_deg, face_chainage_m,
+        model = _SIM_CACHE[key] = AxisymLayoutSolver(layout, cutterhead_deg, face_chainage_m,
                                                measurements=quads)
     return model.response_scenario(scenario, face_chainage_m, cutterhead_deg)
 
 
-__all__ = ["quadrupole_terms", "LayoutAxisym", "AxisymModel", "simulate_model"]
+__all__ = ["quadrupole_terms", "AxisymLayoutSolver", "AxisymModel", "simulate_model"]

@@ -38,7 +38,7 @@ class AxisymSolution:
     ``potentials(theta)`` sums them for any azimuths: the fields do not depend on them.
     """
 
-    forward: AxisymForward
+    forward: AxisymSolver
     secondary: np.ndarray  # (M + 1, n_rec, n_src), V/A
     rho_source: np.ndarray  # (n_src,), ohm-m (nan: no primary)
     rho_ground: np.ndarray
@@ -67,7 +67,7 @@ class AxisymSolution:
         return out
 
 
-class AxisymForward:
+class AxisymSolver:
     """Axisymmetric harmonic forward model on a graded (x, r) mesh.
 
     Parameters
@@ -623,4 +623,4 @@ class AxisymForward:
         return jac, sol
 
 
-__all__ = ["AxisymSolution", "AxisymForward"]
+__all__ = ["AxisymSolution", "AxisymSolver"]

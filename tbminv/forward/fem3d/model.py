@@ -10,7 +10,7 @@ infinity) contributing nothing.
 Cell fill
     Ground cells take ``Scenario.resistivity`` at their centres (world frame). Contacts square to
     the axis that cross the model are **honoured by the mesh** (an internal facet at the
-    contact's ahead distance, :attr:`ForwardSettings.honour_contacts`), so the fill is exact
+    contact's ahead distance, :attr:`Fem3DSettings.honour_contacts`), so the fill is exact
     there; dipping contacts, spheres, ellipsoids and water zones **rely on the mesh being fine
     enough near them** (cell-centre sampling). Machine cells (``cutterhead``, ``shield``) take the
     capped steel resistivity ``layout.machine.body_resistivity_ohmm`` (default 1e-5 ohm-m;
@@ -59,7 +59,7 @@ _LOG = logging.getLogger(__name__)
 
 
 @dataclass(frozen=True)
-class ForwardSettings:
+class Fem3DSettings:
     """Settings of the 3D forward model.
 
     Attributes
@@ -217,12 +217,12 @@ class Forward3D:
     Parameters
     ----------
     layout : Layout
-    settings : ForwardSettings, optional
+    settings : Fem3DSettings, optional
     """
 
-    def __init__(self, layout: Any, settings: ForwardSettings | None = None) -> None:
+    def __init__(self, layout: Any, settings: Fem3DSettings | None = None) -> None:
         self.layout = layout
-        self.settings = settings or ForwardSettings()
+        self.settings = settings or Fem3DSettings()
 
     def mesh(self, scenario: Any | None, face_chainage_m: float,
              cutterhead_deg: float = 0.0) -> TunnelMesh:
@@ -307,7 +307,7 @@ class Forward3D:
 
 def forward3d(layout: Any, scenario: Any, face_chainage_m: float, cutterhead_deg: float = 0.0,
               measurements: Sequence[Any] | None = None,
-              settings: ForwardSettings | None = None) -> np.ndarray:
+              settings: Fem3DSettings | None = None) -> np.ndarray:
     """Transfer resistances (V/A) of a layout's protocol in a scenario; see :class:`Forward3D`."""
     return Forward3D(layout, settings).run(scenario, face_chainage_m, cutterhead_deg,
                                            measurements).r_ohm
@@ -328,5 +328,5 @@ class Model3D:
                           float)
 
 
-__all__ = ["Model3D", "ForwardSettings", "ForwardResult", "Forward3D", "forward3d",
+__all__ = ["Model3D", "Fem3DSettings", "ForwardResult", "Forward3D", "forward3d",
            "cell_resistivity",           "contact_planes", "unit_potentials"]

@@ -24,7 +24,7 @@ from tbminv.studies.methods.synthetic import (
 _LOG = logging.getLogger(__name__)
 # ------------------------------------------------------------------------ (c) 2.5D section
 @dataclass(frozen=True)
-class SectionInversionSettings:
+class Cartesian25DInversionSettings:
     """Settings of the Cartesian 2.5D section inversion.
 
     Attributes
@@ -67,26 +67,26 @@ class SectionInversionSettings:
     upper_ohmm: float = 1e5
 
 
-class SectionInverter:
+class Cartesian25DInverter:
     """Cartesian 2.5D section inversion of one layout (see the module docstring).
 
     Parameters
     ----------
     layout : Layout
-    settings : SectionInversionSettings, optional
+    settings : Cartesian25DInversionSettings, optional
     reference : ForwardModel, optional
         The 3D model of the ratio correction (default: :func:`model_3d`, small P1 mesh).
     """
 
-    def __init__(self, layout: Layout, settings: SectionInversionSettings | None = None,
+    def __init__(self, layout: Layout, settings: Cartesian25DInversionSettings | None = None,
                  reference: Any | None = None) -> None:
-        from tbminv.forward.cartesian25d import Section25DSettings, SectionModel
+        from tbminv.forward.cartesian25d import Cartesian25DModel, Cartesian25DSettings
 
         self.layout = layout
-        self.settings = settings or SectionInversionSettings()
+        self.settings = settings or Cartesian25DInversionSettings()
         s = self.settings
         self.reference = reference or model_3d(layout)
-        self.section = SectionModel(layout, Section25DSettings(
+        self.section = Cartesian25DModel(layout, Cartesian25DSettings(
             domain_m=s.domain_m, refine_m=s.refine_m, area_m2=s.area_m2,
             rho_ref_ohmm=s.rho_ref_ohmm, ratio_correction=True), reference=self.reference)
 
@@ -161,17 +161,18 @@ class SectionInverter:
                 "chi2_history": [float(v) for v in mgr.inv.chi2History]}
 
 
-def run_section25d(drive: SyntheticDrive, settings: SectionInversionSettings | None = None, *,
-                   reference: Any | None = None, label: str = "default",
-                   error_floor: float = 0.0, inverter: SectionInverter | None = None
-                   ) -> list[AdvanceRecord]:
+def run_cartesian25d(drive: SyntheticDrive,
+                     settings: Cartesian25DInversionSettings | None = None, *,
+                     reference: Any | None = None, label: str = "default",
+                     error_floor: float = 0.0, inverter: Cartesian25DInverter | None = None
+                     ) -> list[AdvanceRecord]:
     """Method ``section25d``: pyGIMLi 2.5D section inversion of ratio-corrected data.
 
     ``time_s`` is the wall time of each advance including the 3D homogeneous run of the ratio
     correction (cached per electrode geometry).
     """
     data = with_error_floor(drive.data, error_floor)
-    inv = inverter or SectionInverter(drive.layout, settings, reference)
+    inv = inverter or Cartesian25DInverter(drive.layout, settings, reference)
     out = []
     for adv in data:
         t0 = time.perf_counter()
@@ -183,4 +184,4 @@ def run_section25d(drive: SyntheticDrive, settings: SectionInversionSettings | N
     return out
 
 
-__all__ = ["SectionInversionSettings", "SectionInverter", "run_section25d"]
+__all__ = ["Cartesian25DInversionSettings", "Cartesian25DInverter", "run_cartesian25d"]

@@ -13,7 +13,7 @@ import pandas as pd
 from tbminv.ground import Scenario
 from tbminv.layout import Layout
 from tbminv.studies.methods.axisym import run_axisym
-from tbminv.studies.methods.cartesian import run_section25d
+from tbminv.studies.methods.cartesian import run_cartesian25d
 from tbminv.studies.methods.region3d import run_region3d
 from tbminv.studies.methods.synthetic import METHODS, AdvanceRecord, SyntheticDrive, records_table
 
@@ -37,7 +37,7 @@ class MethodCase:
 
 
 _RUNNERS: dict[str, Callable[..., list[AdvanceRecord]]] = {
-    "axisym": run_axisym, "region3d": run_region3d, "section25d": run_section25d}
+    "axisym": run_axisym, "region3d": run_region3d, "section25d": run_cartesian25d}
 
 
 def compare(drives: SyntheticDrive | Sequence[SyntheticDrive], cases: Sequence[MethodCase]
@@ -57,10 +57,10 @@ def compare(drives: SyntheticDrive | Sequence[SyntheticDrive], cases: Sequence[M
 def _coarse3d_simulate(layout: Layout, scenario: Scenario, face_chainage_m: float,
                        cutterhead_deg: float, measurements: Sequence[tuple]) -> np.ndarray:
     """``simulate`` signature on pyGIMLi's 3D with the default mesh and P1 elements."""
-    from tbminv.forward.fem3d.model import ForwardSettings, forward3d
+    from tbminv.forward.fem3d.model import Fem3DSettings, forward3d
 
     return forward3d(layout, scenario, face_chainage_m, cutterhead_deg, measurements,
-                     settings=ForwardSettings(p2=False))
+                     settings=Fem3DSettings(p2=False))
 
 
 def register_simulate_models() -> tuple[str, ...]:

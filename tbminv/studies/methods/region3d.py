@@ -98,10 +98,10 @@ def model_3d(layout: Layout, *, p2: bool = False, mesh: Any | None = None,
     ``honour_contacts = False`` keeps one mesh for every ground (contacts filled by cell
     centres).
     """
-    from tbminv.forward.fem3d.model import ForwardSettings
+    from tbminv.forward.fem3d.model import Fem3DSettings
     from tbminv.forward.registry import make_model
 
-    fs = ForwardSettings(p2=p2, mesh=mesh or coarse_mesh_settings(),
+    fs = Fem3DSettings(p2=p2, mesh=mesh or coarse_mesh_settings(),
                          honour_contacts=honour_contacts)
     return make_model("3d", layout, settings=fs)
 

@@ -21,7 +21,7 @@ wall time per advance. Methods (names in :data:`METHODS`):
     bounded by the slab thickness.
 ``section25d``
     A vertical Cartesian 2.5D section through the axis on pyGIMLi's own 2.5D ERT
-    (:class:`tbminv.section25d.SectionModel` meshes, :class:`pygimli.physics.ert.ERTManager`):
+    (:class:`tbminv.section25d.Cartesian25DModel` meshes, :class:`pygimli.physics.ert.ERTManager`):
     the ground cells of the section are inverted with the machine and tunnel as fixed regions.
     Data are ratio-corrected (Fox et al. 1980, Geophysics 45(1):75-93): apparent resistivities
     ``rho_a = rho_ref R_obs / R_3D(hom)`` with the homogeneous response of the true 3D geometry,
