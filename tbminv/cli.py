@@ -29,7 +29,7 @@ import numpy as np
 
 from tbminv import environment_report
 from tbminv.demo import run_demo
-from tbminv.ground import ScenarioError, load_scenario
+from tbminv.ground import NotAxisymmetricError, ScenarioError, load_scenario
 from tbminv.inversion.outcome import SectionError
 from tbminv.inversion.settings import InversionError
 from tbminv.jobs import invert_job, reach_job, report_job, run_check
@@ -45,6 +45,27 @@ _LOG = logging.getLogger(__name__)
 
 class CLIError(Exception):
     """A command-line problem reported to the user without a traceback (exit code 2)."""
+
+
+def _number(kind: str) -> Callable[[str], float]:
+    """An argparse type: a finite float that is ``positive`` (> 0) or ``non-negative`` (>= 0)."""
+
+    def parse(text: str) -> float:
+        try:
+            value = float(text)
+        except ValueError:
+            raise argparse.ArgumentTypeError(f"{text!r} is not a number") from None
+        ok = np.isfinite(value) and (value > 0 if kind == "positive" else value >= 0)
+        if not ok:
+            raise argparse.ArgumentTypeError(f"{text!r}: expected a {kind} number")
+        return value
+
+    parse.__name__ = f"{kind} number"
+    return parse
+
+
+POSITIVE = _number("positive")
+NON_NEGATIVE = _number("non-negative")
 
 
 def parse_faces(text: str) -> np.ndarray:
@@ -147,8 +168,10 @@ def build_parser() -> argparse.ArgumentParser:
     s.add_argument("--out", required=True, help="readings log to write (CSV or .parquet)")
     s.add_argument("--model", default="axisym",
                    help="forward model: axisym (default), 3d or section")
-    s.add_argument("--noise-rel", type=float, default=0.0, help="relative noise (fraction)")
-    s.add_argument("--noise-abs", type=float, default=0.0, help="absolute voltage noise, V")
+    s.add_argument("--noise-rel", type=NON_NEGATIVE, default=0.0,
+                   help="relative noise (fraction)")
+    s.add_argument("--noise-abs", type=NON_NEGATIVE, default=0.0,
+                   help="absolute voltage noise, V")
     s.add_argument("--seed", type=int, default=None, help="random seed for the noise")
     s.set_defaults(func=cmd_simulate)
 
@@ -174,16 +197,17 @@ def build_parser() -> argparse.ArgumentParser:
     r = sub.add_parser("reach", help="how far ahead a layout sees a contrast")
     r.add_argument("--layout", required=True, help="layout file (TOML)")
     r.add_argument("--out", required=True, help="output folder")
-    r.add_argument("--contrast", type=float, default=10.0,
+    r.add_argument("--contrast", type=POSITIVE, default=10.0,
                    help="resistivity beyond / around (default 10)")
-    r.add_argument("--noise-rel", type=float, default=0.02, help="relative noise (fraction)")
-    r.add_argument("--noise-abs", type=float, default=0.0, help="absolute noise, V")
+    r.add_argument("--noise-rel", type=NON_NEGATIVE, default=0.02,
+                   help="relative noise (fraction)")
+    r.add_argument("--noise-abs", type=NON_NEGATIVE, default=0.0, help="absolute noise, V")
     r.add_argument("--sweep", default=None, help="sweep file (TOML)")
     r.add_argument("--model", default="axisym", choices=("axisym", "analytic", "3d", "section"),
                    help="forward model (default axisym)")
     r.add_argument("--model-settings", default="fast", choices=("fast", "standard"),
                    help="axisym accuracy/speed preset (default fast: within 1 %% of standard)")
-    r.add_argument("--k", type=float, default=3.0,
+    r.add_argument("--k", type=POSITIVE, default=3.0,
                    help="detection threshold in standard deviations (default 3)")
     r.add_argument("--target", default="contact", choices=("contact", "sphere"),
                    help="what approaches the face (default: a contact square to the axis)")
@@ -232,8 +256,9 @@ def main(argv: Sequence[str] | None = None) -> int:
     logging.basicConfig(level=level, format="%(levelname)s %(name)s: %(message)s")
     logging.getLogger("tbminv").setLevel(level)
     func: Callable[[argparse.Namespace], int] = args.func
-    expected = (CLIError, LayoutError, ScenarioError, FileNotFoundError, ReadingsError, QCError,
-                SectionError, InversionError, AheadSettingsError, MaterialTableError)
+    expected = (CLIError, LayoutError, ScenarioError, NotAxisymmetricError, FileNotFoundError,
+                ReadingsError, QCError, SectionError, InversionError, AheadSettingsError,
+                MaterialTableError)
     try:
         return func(args)
     except expected as exc:

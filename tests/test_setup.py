@@ -8,6 +8,8 @@ import subprocess
 import sys
 from pathlib import Path
 
+import pytest
+
 ROOT = Path(__file__).resolve().parents[1]
 
 
@@ -52,13 +54,33 @@ def test_environment_report_names_pygimli():
     assert "pygimli" in text and "numpy" in text
 
 
+def _ci_function(name: str) -> str:
+    """The shell function ``name`` of .ci/run, as text."""
+    text = (ROOT / ".ci" / "run").read_text()
+    m = re.search(re.escape(name) + r"\(\) \{.*?^\}$", text, re.S | re.M)
+    assert m, f".ci/run has no function {name}"
+    return m.group(0)
+
+
 def test_readme_test_command_is_what_ci_runs():
     readme = (ROOT / "README.md").read_text()
     blocks = re.findall(r"<!-- test-command -->\s*```(?:bash|sh)?\n(.*?)\n```", readme, re.S)
     assert len(blocks) == 1, "README must hold exactly one test-command block"
-    ci = (ROOT / ".ci" / "run").read_text()
-    # .ci/run extracts the block from README and runs it verbatim
-    assert "test-command" in ci and "readme_block" in ci
+    script = _ci_function("readme_block") + "\nreadme_block test-command\n"
+    out = subprocess.run(["bash", "-c", script], cwd=ROOT, capture_output=True, text=True,
+                         timeout=60)
+    assert out.returncode == 0, out.stderr
+    assert out.stdout.strip() == blocks[0].strip()
+
+
+@pytest.mark.parametrize(("command", "expected"), [("exit 0", 0), ("exit 1", 1), ("exit 5", 5)])
+def test_ci_step_fails_when_pytest_collects_nothing(command, expected):
+    # pytest's exit code 5 means no test ran: CI must not pass it as green
+    script = _ci_function("run_pytest_step") + f"\nrun_pytest_step probe {command!r}\necho passed\n"
+    out = subprocess.run(["bash", "-c", script], cwd=ROOT, capture_output=True, text=True,
+                         timeout=60)
+    assert out.returncode == expected
+    assert ("passed" in out.stdout) == (expected == 0)
 
 
 def test_cli_entry_points():
