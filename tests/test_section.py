@@ -14,8 +14,15 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from tbminv.inversion.outcome import FLAG_MISFIT_HIGH, FLAG_NOT_CONVERGED, AdvanceResult, ContactFit
-from tbminv.results.section import SectionError, build_section, shift_advances, world_view
+from tbminv.inversion.outcome import AdvanceResult, ContactFit
+from tbminv.results.section import (
+    FLAG_MISFIT_HIGH,
+    FLAG_NOT_CONVERGED,
+    SectionError,
+    build_section,
+    shift_advances,
+    world_view,
+)
 from tbminv.results.store import append_shift, open_section
 
 LAYOUT_TEXT = textwrap.dedent("""\

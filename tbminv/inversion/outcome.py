@@ -11,14 +11,6 @@ import numpy as np
 
 _LOG = logging.getLogger(__name__)
 
-#: Bits of the per-advance ``fit_flag`` variable (CF ``flag_masks``).
-FLAG_NOT_CONVERGED = 1
-FLAG_MISFIT_HIGH = 2
-FLAG_MISFIT_LOW = 4
-FLAG_MEANINGS = "not_converged misfit_high misfit_low"
-
-ENGINE = "h5netcdf"
-STORE_FORMAT = 1
 
 class SectionError(ValueError):
     """Results or a store that do not fit the section contract; the message says where."""
@@ -218,5 +210,4 @@ class AdvanceResult:
         self.chi2_history = [float(v) for v in self.chi2_history]
 
 
-__all__ = ["FLAG_NOT_CONVERGED", "FLAG_MISFIT_HIGH", "FLAG_MISFIT_LOW", "FLAG_MEANINGS", "ENGINE",
-           "STORE_FORMAT", "SectionError", "ContactFit", "AdvanceResult"]
+__all__ = ["SectionError", "ContactFit", "AdvanceResult"]

@@ -55,8 +55,8 @@ FLAG_MISFIT_HIGH = 2
 FLAG_MISFIT_LOW = 4
 FLAG_MEANINGS = "not_converged misfit_high misfit_low"
 
-ENGINE = "h5netcdf"
 STORE_FORMAT = 1
+"""Version of the section-store layout, written to the ``tbminv_store_format`` attribute."""
 
 
 @dataclass(frozen=True)
@@ -463,6 +463,6 @@ def hash_files(paths: Sequence[str | os.PathLike[str]]) -> str:
     return h.hexdigest()
 
 
-__all__ = ["FLAG_NOT_CONVERGED", "FLAG_MISFIT_HIGH", "FLAG_MISFIT_LOW", "FLAG_MEANINGS", "ENGINE",
+__all__ = ["FLAG_NOT_CONVERGED", "FLAG_MISFIT_HIGH", "FLAG_MISFIT_LOW", "FLAG_MEANINGS",
            "STORE_FORMAT", "SectionSettings", "build_section", "world_view", "transverse_dim",
            "shift_advances", "clean_advances", "hash_files"]

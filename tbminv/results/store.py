@@ -20,14 +20,8 @@ from tbminv.results.section import SectionError, _attrs, transverse_dim
 
 _LOG = logging.getLogger(__name__)
 
-#: Bits of the per-advance ``fit_flag`` variable (CF ``flag_masks``).
-FLAG_NOT_CONVERGED = 1
-FLAG_MISFIT_HIGH = 2
-FLAG_MISFIT_LOW = 4
-FLAG_MEANINGS = "not_converged misfit_high misfit_low"
-
 ENGINE = "h5netcdf"
-STORE_FORMAT = 1
+"""NetCDF engine of the store."""
 
 # --------------------------------------------------------------------------- the store
 
@@ -192,5 +186,4 @@ def append_shift(store_path: str | os.PathLike[str], ds: xr.Dataset, shift: str)
     return store
 
 
-__all__ = ["FLAG_NOT_CONVERGED", "FLAG_MISFIT_HIGH", "FLAG_MISFIT_LOW", "FLAG_MEANINGS", "ENGINE",
-           "STORE_FORMAT", "open_section", "append_shift"]
+__all__ = ["ENGINE", "open_section", "append_shift"]
