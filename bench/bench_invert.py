@@ -47,14 +47,12 @@ MAX_ITER = 8
 
 def _data(advances: list[int]):
     from tbminv.layout import load_layout
-    from tbminv.readings.advance import advance_data
-    from tbminv.readings.qc import QCSettings, run_qc
-    from tbminv.readings.reader import read_readings
+    from tbminv.readings.advance import prepare_advances
+    from tbminv.readings.qc import QCSettings
 
     layout = load_layout(DATA / "fixture_layout.toml")
-    readings = read_readings(DATA / f"drive_{DRIVE}.csv", layout)
-    qc = run_qc(readings, QCSettings(error_model_group="log"))
-    data = advance_data(qc.table, layout)
+    data = prepare_advances(DATA / f"drive_{DRIVE}.csv", layout,
+                            QCSettings(error_model_group="log")).advances
     return layout, [data[i] for i in advances]
 
 
@@ -119,7 +117,7 @@ def _section_row(r) -> dict:
 
 def run_stock(advances: list[int]) -> dict:
     from tbminv.forward.fem3d.mesh import MeshSettings, layout_mesh
-    from tbminv.gimli import configure_operator, ert, pg
+    from tbminv.gimli import configure_operator, ert, ert_data_container, pg
 
     layout, data = _data(advances)
     rows = []
@@ -136,20 +134,13 @@ def run_stock(advances: list[int]) -> dict:
             if e.kind == "machine":
                 node[e.label] = tm.steel_node
         pos = np.asarray(mesh.positions())
-        scheme = pg.DataContainerERT()
-        idx: dict[str, int] = {}
-        for lab, nd in node.items():
-            if nd is not None:
-                idx[lab] = len(idx)
-                scheme.createSensor(pg.Pos(*pos[nd]))
-        use = []
-        for qi, q in enumerate(layout.measurements):
-            if not (np.isfinite(adv.r_ohm[qi]) and np.isfinite(adv.rel_error[qi])):
-                continue
-            a, b, m, n = (idx.get(x, -1) if x is not None else -1 for x in q.labels())
-            scheme.createFourPointData(scheme.size(), a, b, m, n)
-            use.append(qi)
-        use = np.array(use)
+        idx = {lab: i for i, lab in enumerate(lab for lab, nd in node.items() if nd is not None)}
+        use = np.array([qi for qi in range(len(layout.measurements))
+                        if np.isfinite(adv.r_ohm[qi]) and np.isfinite(adv.rel_error[qi])])
+        scheme = ert_data_container(
+            [pos[node[lab]] for lab in idx],
+            [[idx.get(x, -1) if x is not None else -1 for x in layout.measurements[qi].labels()]
+             for qi in use])
         markers = np.asarray(mesh.cellMarkers())
         steel = np.unique(markers[tm.steel_mask()])
         bore = np.unique(markers[tm.region_mask("tunnel")])

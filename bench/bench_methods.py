@@ -36,12 +36,11 @@ def main() -> None:
     logging.basicConfig(level=logging.WARNING)
     logging.getLogger(__name__).setLevel(logging.ERROR)
     logging.getLogger("Core").setLevel(logging.WARNING)
-    methods.register_simulate_models()
     layout = methods.compact_layout(load_layout(demo_layout_path()))
     scenario = dataclasses.replace(load_scenario(demo_ground_path()), spheres=())
     t0 = time.perf_counter()
-    drive = methods.synthetic_drive(layout, scenario, FACES_M, model="3d-p1", noise_rel=0.02,
-                                    seed=7, name="machine+wall")
+    drive = methods.synthetic_drive(layout, scenario, FACES_M, model=methods.model_3d_p1(layout),
+                                    noise_rel=0.02, seed=7, name="machine+wall")
     t_sim = time.perf_counter() - t0
     axisym = make_model("axisym", layout, settings=AxisymSettings(
         mesh=CylMeshSettings(h_fine_m=0.05, growth=1.25, domain_m=1500.0), max_harmonics=20))

@@ -3,7 +3,8 @@
 Writes ``bench/results/reach_diameter.json`` (part ``diameter``) and ``bench/results/reach.json``
 (part ``sweep``). Both use the demo layout with its explicit measurements only (machine-pole and
 cutterhead-pole readings; no generated protocol), the steel machine and the tunnel in, the
-axisymmetric model with :meth:`tbminv.axisym.AxisymSettings.fast`, 2 % relative noise, k = 3.
+axisymmetric model with :meth:`tbminv.forward.axisym.fields.AxisymSettings.fast`, 2 % relative
+noise, k = 3.
 
 Usage: ``python bench/bench_reach.py [diameter|sweep|all]``. Timings on a shared machine are noisy.
 """

@@ -9,6 +9,11 @@ peak resident memory (``ru_maxrss``) is its own; the baseline is the same proces
 imports, before reading. The log is invented: the demo layout's protocol repeated over
 advances, with one bad row every ``--bad-every`` rows (negative current, text in a number or an
 unknown label, in turn) and every quadrupole read with its reciprocal.
+
+Stages: ``read`` (the CSV file), ``read_frame`` (the same log handed over as a pandas DataFrame
+already in memory; its peak includes the frame), ``read_qc``, ``prepare`` (read, QC and the
+per-advance data, :func:`tbminv.readings.advance.prepare_advances`) and ``run_check`` (with the
+summary files and the figure).
 """
 
 from __future__ import annotations
@@ -83,20 +88,29 @@ def _maxrss_mb() -> float:
 
 def run_stage(stage: str, log: Path, out: Path) -> dict[str, float]:
     """One stage in this process; returns timings and peak memory."""
+    import pandas as pd
+
     from tbminv.jobs import run_check
     from tbminv.layout import demo_layout_path, load_layout
+    from tbminv.readings.advance import prepare_advances
     from tbminv.readings.qc import QCSettings, run_qc
     from tbminv.readings.reader import read_readings
 
     layout = load_layout(demo_layout_path())
+    frame = pd.read_csv(log) if stage == "read_frame" else None   # held in memory beforehand
     base = _maxrss_mb()
     res: dict[str, float] = {"baseline_rss_mb": base}
     t0 = time.perf_counter()
     settings = QCSettings(error_model_group="advance", fallback_a_ohm=1e-4, fallback_b=0.02)
-    if stage == "read":
-        r = read_readings(log, layout)
+    if stage in ("read", "read_frame"):
+        r = read_readings(log if frame is None else frame, layout)
         res["rows_read"] = r.summary.rows_read
         res["rows_quarantined"] = r.summary.rows_quarantined
+    elif stage == "prepare":
+        prep = prepare_advances(log, layout, settings)
+        res["rows_read"] = prep.readings.summary.rows_read
+        res["valid"] = int(prep.qc.table["valid"].sum())
+        res["advances"] = len(prep.advances)
     elif stage == "read_qc":
         r = read_readings(log, layout)
         t1 = time.perf_counter()
@@ -132,6 +146,7 @@ def main() -> None:
     results: dict[str, object] = {
         "python": platform.python_version(), "machine": platform.machine(),
         "cpus": os.cpu_count(),
+        "load_average_1min_at_start": os.getloadavg()[0],   # other work on the machine
         "target": ">= 1e5 rows/s for read + check of a 1-million-row log (2 cores)",
     }
     with tempfile.TemporaryDirectory(prefix="tbminv-bench-") as tmp:
@@ -143,7 +158,7 @@ def main() -> None:
             made = make_log(log, rows, args.bad_every)
             entry: dict[str, object] = {"rows": rows, "file_mb": log.stat().st_size / 2**20,
                                         "generate_s": time.perf_counter() - t0, **made}
-            for stage in ("read", "read_qc", "run_check"):
+            for stage in ("read", "read_frame", "read_qc", "prepare", "run_check"):
                 proc = subprocess.run(
                     [sys.executable, __file__, "--stage", stage, "--log", str(log), "--out",
                      str(Path(tmp) / f"out_{rows}_{stage}")],

@@ -14,7 +14,7 @@ Commands (the README lists them; DEVELOPERS.md the file formats)::
     tbminv env                      # environment report for bug reports
 
 Exit codes: 0 success, 1 the job ran but found nothing usable, 2 bad input (one line naming the
-file, row or field).
+file, row or field), 3 (``invert``) partial: images stored, a post-processing step failed.
 """
 
 from __future__ import annotations
@@ -29,6 +29,7 @@ import numpy as np
 
 from tbminv import environment_report
 from tbminv.demo import run_demo
+from tbminv.forward.registry import MODEL_NAMES, MODEL_SETTINGS_CHOICES
 from tbminv.ground import NotAxisymmetricError, ScenarioError, load_scenario
 from tbminv.inversion.outcome import SectionError
 from tbminv.inversion.settings import InversionError
@@ -166,8 +167,8 @@ def build_parser() -> argparse.ArgumentParser:
     s.add_argument("--ground", required=True, help="ground scenario file (TOML)")
     s.add_argument("--faces", required=True, help="face chainages START:STOP:STEP, m (inclusive)")
     s.add_argument("--out", required=True, help="readings log to write (CSV or .parquet)")
-    s.add_argument("--model", default="axisym",
-                   help="forward model: axisym (default), 3d or section")
+    s.add_argument("--model", default="axisym", choices=MODEL_NAMES,
+                   help="forward model (default axisym; 3d for any scenario)")
     s.add_argument("--noise-rel", type=NON_NEGATIVE, default=0.0,
                    help="relative noise (fraction)")
     s.add_argument("--noise-abs", type=NON_NEGATIVE, default=0.0,
@@ -183,7 +184,20 @@ def build_parser() -> argparse.ArgumentParser:
                    help="settings file (TOML) with a [qc] table (thresholds, fallback error)")
     c.set_defaults(func=cmd_check)
 
-    i = sub.add_parser("invert", help="invert every advance into the moving section store")
+    i = sub.add_parser(
+        "invert", help="invert every advance into the moving section store",
+        formatter_class=argparse.RawDescriptionHelpFormatter,
+        description="Invert every advance of a readings log and append them to the section "
+                    "store as one shift.",
+        epilog="Each advance's image is journaled beside the store (STORE.journal/) as soon as "
+               "it is done;\nafter a crash or a kill, the same command resumes where it "
+               "stopped.\n\n"
+               "exit codes:\n"
+               "  0  success\n"
+               "  2  bad input (one line naming the file, row or field); nothing is stored\n"
+               "  3  partial: images stored, a post-processing step failed (contact fit, depth "
+               "of\n     investigation or resampling); the store's postprocess_flag says "
+               "which advances")
     i.add_argument("readings", help="readings log (CSV or Parquet)")
     i.add_argument("--layout", required=True, help="layout file (TOML)")
     i.add_argument("--store", required=True, help="section store (NetCDF) to create or append")
@@ -203,9 +217,9 @@ def build_parser() -> argparse.ArgumentParser:
                    help="relative noise (fraction)")
     r.add_argument("--noise-abs", type=NON_NEGATIVE, default=0.0, help="absolute noise, V")
     r.add_argument("--sweep", default=None, help="sweep file (TOML)")
-    r.add_argument("--model", default="axisym", choices=("axisym", "analytic", "3d", "section"),
+    r.add_argument("--model", default="axisym", choices=MODEL_NAMES,
                    help="forward model (default axisym)")
-    r.add_argument("--model-settings", default="fast", choices=("fast", "standard"),
+    r.add_argument("--model-settings", default="fast", choices=MODEL_SETTINGS_CHOICES,
                    help="axisym accuracy/speed preset (default fast: within 1 %% of standard)")
     r.add_argument("--k", type=POSITIVE, default=3.0,
                    help="detection threshold in standard deviations (default 3)")

@@ -62,8 +62,8 @@ def run_demo(out_dir: Path, echo: Callable[[str], None] | None = None) -> int:
         echo(f"  check: {line}")
     if not result.usable:
         return 1
-    ds = run_drive(readings, layout, store, settings=inv_settings, qc_settings=qc_settings,
-                   out_dir=out / "invert", layout_path=demo_layout_path(), progress=True)
+    ds = run_drive(result.prepared, layout, store, settings=inv_settings,
+                   layout_path=demo_layout_path(), progress=True)
     echo(f"  invert: {ds.sizes['advance']} advances -> section store {store}")
     for p in write_report(store, out / "report", qc_summary=result.summary.get("qc")):
         echo(f"  report: {p}")

@@ -25,6 +25,7 @@ from __future__ import annotations
 
 import logging
 import os
+from collections.abc import Mapping, Sequence
 from typing import Any
 
 _LOG = logging.getLogger("tbminv.gimli")
@@ -87,6 +88,7 @@ def _quiet_logging() -> None:
 _root_handlers_before = list(logging.getLogger().handlers)
 _prepare_environment()
 
+import numpy as np  # noqa: E402
 import pygimli as pg  # noqa: E402
 import pygimli.physics.ert as ert  # noqa: E402
 
@@ -130,6 +132,43 @@ def configure_operator(fop: Any, n_threads: int | None = None) -> Any:
     return fop
 
 
+def ert_data_container(sensors: Sequence[Sequence[float]],
+                       quadrupoles: Sequence[Sequence[int]],
+                       fields: Mapping[str, Any] | None = None) -> Any:
+    """An ERT data container of sensors and quadrupoles, the one place tbminv builds one.
+
+    Parameters
+    ----------
+    sensors : sequence of positions
+        Sensor coordinates, m: (x, y) on a 2D or 2.5D section, (x, y, z) in 3D. pyGIMLi merges
+        positions closer than 1 mm into one sensor; quadrupoles index ``sensors`` either way.
+    quadrupoles : sequence of (a, b, m, n)
+        Indices into ``sensors`` of the current (a, b) and potential (m, n) electrodes of each
+        datum; -1 for none (a pole).
+    fields : mapping name -> sequence, optional
+        Data fields, one value per quadrupole, e.g. ``{"k": ..., "rhoa": ..., "err": ...}``
+        (units as pyGIMLi reads them: ``k`` m, ``rhoa`` ohm-m, ``err`` relative). ``k`` defaults
+        to ones.
+
+    Returns
+    -------
+    pygimli.DataContainerERT
+    """
+    data = pg.DataContainerERT()
+    index = [int(data.createSensor(pg.Pos(*(float(c) for c in p)))) for p in sensors]
+    for i, q in enumerate(quadrupoles):
+        data.createFourPointData(i, *(index[int(j)] if int(j) >= 0 else -1 for j in q))
+    values = {"k": np.ones(len(quadrupoles))}
+    values.update(fields or {})
+    for name, v in values.items():
+        v = np.asarray(v, float)
+        if v.shape != (len(quadrupoles),):
+            raise ValueError(f"data field {name!r} has shape {v.shape} for {len(quadrupoles)} "
+                             "quadrupoles")
+        data.set(name, pg.Vector(v))
+    return data
+
+
 def versions() -> dict[str, str]:
     """Versions of pyGIMLi and pgcore as text (for provenance attributes)."""
     out = {"pygimli": str(getattr(pg, "__version__", "unknown"))}
@@ -143,4 +182,4 @@ def versions() -> dict[str, str]:
     return out
 
 
-__all__ = ["pg", "ert", "configure_operator", "thread_count", "versions"]
+__all__ = ["pg", "ert", "configure_operator", "ert_data_container", "thread_count", "versions"]

@@ -1,10 +1,10 @@
 """Ground scenarios: resistivity at any point of a synthetic drive.
 
-A scenario (TOML, see the shared design §3.3) has a background resistivity, planar contacts,
-spheres, ellipsoids and water-bearing zones. Contacts apply in file order (a later one overrides
-beyond its plane); bodies (spheres, ellipsoids, water zones, in that order) override contacts.
-Coordinates are world coordinates (chainage ``x``, ``y`` to the left, ``z`` up, m); resistivity
-in ohm-m.
+A scenario (TOML; format in DEVELOPERS.md, "File formats") has a background resistivity,
+planar contacts, spheres, ellipsoids and water-bearing zones. Contacts apply in file order (a
+later one overrides beyond its plane); bodies (spheres, ellipsoids, water zones, in that order)
+override contacts. Coordinates are world coordinates (chainage ``x``, ``y`` to the left, ``z``
+up, m); resistivity in ohm-m.
 
 Orientation of a contact: ``strike_deg`` is measured in the horizontal plane from the drive
 direction, clockwise seen from above (towards the right-hand side, ``-y``); ``dip_deg`` from the
@@ -24,6 +24,9 @@ from pathlib import Path
 from typing import Any
 
 import numpy as np
+import tomli_w
+
+from tbminv.cache import atomic_write_text
 
 
 class ScenarioError(ValueError):
@@ -240,10 +243,6 @@ class Scenario:
 
     def to_toml(self, path: str | Path) -> Path:
         """Write the scenario file atomically."""
-        import tomli_w
-
-        from tbminv.cache import atomic_write_text
-
         return atomic_write_text(path, tomli_w.dumps(self.to_dict()))
 
     @classmethod

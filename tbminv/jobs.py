@@ -15,9 +15,20 @@ from typing import Any
 
 import numpy as np
 import pandas as pd
+import tomli_w
+import xarray as xr
 
+import tbminv
 from tbminv.cache import atomic_path, atomic_write_text
+from tbminv.forward.registry import model_options_for
+from tbminv.gimli import versions
 from tbminv.inversion.drive import DriveInverter
+from tbminv.inversion.journal import Journal
+from tbminv.inversion.outcome import (
+    POSTPROCESS_MASKS,
+    POSTPROCESS_MEANINGS,
+    POSTPROCESS_RESAMPLING_FAILED,
+)
 from tbminv.inversion.settings import (
     SCHEDULER_NEEDS_COLD,
     InversionError,
@@ -29,20 +40,14 @@ from tbminv.materials import load_material_table
 from tbminv.plots.qc import write_figure
 from tbminv.plots.reach import plot_reach_map, plot_response_vs_distance
 from tbminv.plots.section import save_figure
-from tbminv.readings.advance import AdvanceData, advance_data
-from tbminv.readings.qc import QCResult, QCSettings, _json, run_qc, summary_text
-from tbminv.readings.reader import Readings, read_readings
+from tbminv.readings.advance import AdvanceData, PreparedReadings, prepare_advances
+from tbminv.readings.qc import QCResult, QCSettings, _json, summary_text
+from tbminv.readings.reader import Readings
 from tbminv.report import write_report
 from tbminv.results.ahead import AheadSettings
 from tbminv.results.section import build_section
-from tbminv.results.store import append_shift
-from tbminv.studies.reach import (
-    ReachSettings,
-    best_measurements,
-    load_sweep,
-    model_options_for,
-    reach_study,
-)
+from tbminv.results.store import append_shift, check_appendable
+from tbminv.studies.reach import ReachSettings, best_measurements, load_sweep, reach_study
 from tbminv.studies.sweep import run_sweep
 
 _LOG = logging.getLogger(__name__)
@@ -58,46 +63,137 @@ def file_sha256(path: str | Path) -> str:
     return h.hexdigest()
 
 
-def run_drive(readings_path: str | Path, layout: Layout, store_path: str | Path, *,
-              settings: InversionSettings | None = None, qc_settings: Any | None = None,
-              out_dir: str | Path | None = None, cold: bool = False, shift: str | None = None,
+def run_drive(readings: str | Path | pd.DataFrame | PreparedReadings, layout: Layout,
+              store_path: str | Path,
+              *, settings: InversionSettings | None = None,
+              qc_settings: QCSettings | None = None, out_dir: str | Path | None = None,
+              cold: bool = False, shift: str | None = None,
               layout_path: str | Path | None = None, progress: bool = False,
-              scheduler: str | None = None, client: Any | None = None) -> Any:
+              scheduler: str | None = None, client: Any | None = None,
+              resume: bool = True) -> xr.Dataset:
     """Check, invert and store a readings log (one shift) in the section store.
 
-    ``scheduler`` (a dask scheduler address) or ``client`` run the cold-started advances on
-    dask workers (``cold`` must be set).
+    Parameters
+    ----------
+    readings : path, pandas.DataFrame or PreparedReadings
+        The readings log (CSV or Parquet file, or its columns as a DataFrame; read,
+        quarantined and QC'd here with ``qc_settings``), or the same already prepared by
+        :func:`tbminv.readings.advance.prepare_advances` (e.g. ``run_check(...).prepared``:
+        the log is not read twice).
+    layout : Layout
+    store_path : path
+        Section store (NetCDF), created or appended to; its journal lives beside it.
+    settings, qc_settings : optional
+        Inversion and QC settings (QC only when ``readings`` is a path).
+    out_dir : path, optional
+        Folder for the quarantine file (when ``readings`` is a path).
+    cold : bool
+        Start every advance from a homogeneous model.
+    shift : str, optional
+        Shift label (default: from the first reading's time, else the advance numbers).
+    layout_path : path, optional
+        The layout file, kept as text in the store (default: the layout written as TOML).
+    progress : bool
+        Show progress bars.
+    scheduler, client : optional
+        A dask scheduler address or client: run the cold-started advances on its workers
+        (``cold`` must be set).
+    resume : bool
+        Take the advances journaled by an earlier run of the same inputs and settings from the
+        journal (default); False starts again (the old journal is replaced).
 
     Returns
     -------
     xarray.Dataset
-        The section of this run (also appended to ``store_path``).
+        The section of this run (also appended to ``store_path``). ``postprocess_flag`` is
+        non-zero for advances where the contact fit, DOI or resampling failed (images kept).
+
+    Notes
+    -----
+    Order of work: the readings are checked against the layout's protocol, the store is
+    checked (a probe file written beside it; grid, layout and advance numbers against what
+    it holds) and :meth:`DriveInverter.prepare` builds the reference resistivity, surface
+    factors and contact fitter -- all before the first image, so a run that must fail fails
+    at once. Each image then goes to the journal ``<store>.journal/<key>/`` the moment it is
+    done (:class:`tbminv.inversion.journal.Journal`); a crash or kill loses at most the
+    advance in progress and the same call again resumes. The journal is removed once the
+    shift is in the store.
     """
     settings = settings or InversionSettings()
-    readings = read_readings(readings_path, layout)
-    if out_dir is not None:
-        readings.write_quarantine(out_dir)
-    qc = run_qc(readings, qc_settings or QCSettings())
-    data = advance_data(qc.table, layout)
-    data = [d for d in data if np.isfinite(d.r_ohm).sum() >= 3]
+    if isinstance(readings, PreparedReadings):
+        prepared = readings
+    else:
+        prepared = prepare_advances(readings, layout, qc_settings or QCSettings(),
+                                    out_dir=out_dir)
+    source = prepared.source
+    _check_protocol(prepared, layout)
+    data = [d for d in prepared.advances if np.isfinite(d.r_ohm).sum() >= 3]
     if not data:
-        raise InversionError(f"{readings_path}: no advance has three or more valid readings "
+        raise InversionError(f"{source}: no advance has three or more valid readings "
                              "with an error model (see `tbminv check`)")
-    inverter = DriveInverter(layout, settings)
-    results = inverter.run(data, cold=cold, progress=progress, scheduler=scheduler,
-                           client=client)
     layout_text = (Path(layout_path).read_text(encoding="utf-8") if layout_path
                    else _layout_text(layout))
-    settings_text = repr(settings.to_dict())
-    ds = build_section(results, layout_text, settings_text, file_sha256(readings_path))
+    # the log's bytes when it is a file; else (a DataFrame) the advance data made from it
+    readings_sha = file_sha256(source) if Path(source).is_file() else _advances_sha256(data)
     label = shift or _shift_label(data)
+    inverter = DriveInverter(layout, settings)
+    ahead, radius = inverter.output_grid()
+    check_appendable(store_path, shift=label, advances=np.array([d.advance for d in data]),
+                     ahead=ahead, transverse=radius,
+                     layout_sha256=hashlib.sha256(layout_text.encode("utf-8")).hexdigest())
+    journal = Journal(store_path, {
+        "readings_sha256": readings_sha, "advances_sha256": _advances_sha256(data),
+        "layout": layout.to_dict(), "settings": settings.to_dict(), "cold": bool(cold),
+        "tbminv_version": tbminv.__version__, "versions": versions()})
+    if not resume:
+        journal.remove()
+    for other in journal.others():
+        _LOG.warning("%s: a journal of another run of this store (other inputs or settings) "
+                     "is kept; rerun that run to resume it, or delete the folder", other)
+    results = inverter.run(data, cold=cold, progress=progress, scheduler=scheduler,
+                           client=client, journal=journal)
+    ds = build_section(results, layout_text, repr(settings.to_dict()), readings_sha)
     append_shift(store_path, ds, shift=label)
+    if any(r.postprocess_flag & POSTPROCESS_RESAMPLING_FAILED for r in results):
+        _LOG.warning("journal %s kept: an advance could not be resampled to the output grid "
+                     "(its image is in the journal)", journal.folder)
+    else:
+        journal.remove()
     return ds
 
 
-def _layout_text(layout: Layout) -> str:
-    import tomli_w
+def _check_protocol(prepared: PreparedReadings, layout: Layout) -> None:
+    """Fail when no valid reading of the log is a quadrupole of the layout's protocol."""
+    table = prepared.qc.table
+    valid = table["valid"].to_numpy(bool) & np.isfinite(table["err_ohm"].to_numpy(float))
+    n_valid = int(valid.sum())
+    n_matched = sum(d.n_valid for d in prepared.advances)
+    if n_valid and not n_matched:
+        raise InversionError(f"{prepared.source}: none of its {n_valid} valid readings is a "
+                             f"quadrupole of the protocol of {layout.source} (in either "
+                             "direction); check the layout's [protocol]")
+    if n_matched < n_valid:
+        _LOG.warning("%s: %d of %d valid readings are not in the layout's protocol and are not "
+                     "inverted", prepared.source, n_valid - n_matched, n_valid)
+    measured = np.zeros(len(layout.measurements), bool)
+    for d in prepared.advances:
+        measured |= np.isfinite(d.r_ohm)
+    if not measured.all():
+        _LOG.info("%s: %d of the protocol's %d quadrupoles have no valid reading in any "
+                  "advance", prepared.source, int((~measured).sum()), measured.size)
 
+
+def _advances_sha256(data: Sequence[AdvanceData]) -> str:
+    """SHA-256 of the advance data the inversion sees (numbers, faces, readings, errors)."""
+    h = hashlib.sha256()
+    for d in data:
+        h.update(np.array([d.advance, d.face_chainage_m, d.cutterhead_deg], float).tobytes())
+        h.update(np.ascontiguousarray(d.r_ohm, float).tobytes())
+        h.update(np.ascontiguousarray(d.rel_error, float).tobytes())
+    return h.hexdigest()
+
+
+def _layout_text(layout: Layout) -> str:
     return tomli_w.dumps(layout.to_dict())
 
 
@@ -108,11 +204,18 @@ def _shift_label(data: Sequence[AdvanceData]) -> str:
     return f"advances-{data[0].advance}-{data[-1].advance}"
 
 
+#: Exit code of ``tbminv invert`` when the images are stored but a post-processing step failed.
+EXIT_PARTIAL = 3
+
+
 def invert_job(readings_path: str | Path, layout_path: str | Path, store_path: str | Path, *,
                settings_path: str | Path | None = None, cold: bool = False,
                scheduler: str | None = None, progress: bool = True,
                echo: Callable[[str], None] | None = None) -> int:
     """Check, invert and store one readings log; say what was done (``tbminv invert``).
+
+    Each advance's image is journaled beside the store as soon as it is done; after a crash or
+    a kill the same command resumes (see :func:`run_drive`).
 
     Parameters
     ----------
@@ -132,7 +235,10 @@ def invert_job(readings_path: str | Path, layout_path: str | Path, store_path: s
     Returns
     -------
     int
-        0 on success.
+        0 on success; 3 (:data:`EXIT_PARTIAL`): partial -- the images are stored, but a
+        post-processing step (contact fit, depth of investigation or resampling) failed for
+        some advances; the store's ``postprocess_flag`` says which and what, the log says why.
+        Bad input raises (the command line turns it into exit code 2).
     """
     echo = echo or _LOG.info
     if scheduler and not cold:
@@ -153,6 +259,14 @@ def invert_job(readings_path: str | Path, layout_path: str | Path, store_path: s
                  f"{float(last['contact_ahead_hi_m']):.1f}] m")
         else:
             echo("last advance: no contact found within reach")
+    post = ds["postprocess_flag"].values if "postprocess_flag" in ds else np.zeros(n, int)
+    if np.any(post != 0):
+        meanings = POSTPROCESS_MEANINGS.split()
+        what = {m for bit, m in zip(POSTPROCESS_MASKS, meanings) if np.any(post & bit)}
+        echo(f"partial: images stored, a post-processing step failed for "
+             f"{int((post != 0).sum())} of {n} advances ({', '.join(sorted(what))}; see the "
+             "warnings above and postprocess_flag in the store)")
+        return EXIT_PARTIAL
     return 0
 
 
@@ -172,10 +286,8 @@ class CheckResult:
         ``figure_pdf``).
     summary : dict
         The content of qc_summary.json.
-    readings : Readings
-        The checked readings.
-    qc : QCResult
-        QC result.
+    prepared : PreparedReadings
+        The checked, QC'd readings grouped by advance (hand it on to the inversion).
     """
 
     usable: bool
@@ -185,8 +297,17 @@ class CheckResult:
     n_valid: int
     paths: dict[str, Path]
     summary: dict[str, Any]
-    readings: Readings = field(repr=False)
-    qc: QCResult = field(repr=False)
+    prepared: PreparedReadings = field(repr=False)
+
+    @property
+    def readings(self) -> Readings:
+        """The checked readings (kept rows, quarantine, counts)."""
+        return self.prepared.readings
+
+    @property
+    def qc(self) -> QCResult:
+        """The QC result."""
+        return self.prepared.qc
 
     def describe(self) -> list[str]:
         """A few lines for the command line: counts, error models, files written, verdict."""
@@ -209,7 +330,7 @@ class CheckResult:
         return out
 
 
-def run_check(readings_path: str | os.PathLike[str], layout: Any,
+def run_check(readings_path: str | os.PathLike[str] | pd.DataFrame, layout: Layout,
               out_dir: str | os.PathLike[str], settings: QCSettings | None = None
               ) -> CheckResult:
     """Read, check and QC a readings log; write the quarantine, summary and figure.
@@ -219,8 +340,8 @@ def run_check(readings_path: str | os.PathLike[str], layout: Any,
 
     Parameters
     ----------
-    readings_path : path-like
-        The readings log (CSV or Parquet).
+    readings_path : path-like or pandas.DataFrame
+        The readings log (CSV or Parquet file, or its columns as a DataFrame).
     layout : Layout
         Electrode labels and positions.
     out_dir : path-like
@@ -235,15 +356,14 @@ def run_check(readings_path: str | os.PathLike[str], layout: Any,
 
     Raises
     ------
-    tbminv.readings.ReadingsError
+    tbminv.readings.reader.ReadingsError
         When the log cannot be read at all (nothing is written then).
     """
     settings = settings or QCSettings()
     out = Path(out_dir)
-    out.mkdir(parents=True, exist_ok=True)
-    readings = read_readings(readings_path, layout)
-    qc = run_qc(readings, settings)
-    paths = {"quarantine": readings.write_quarantine(out)}
+    prepared = prepare_advances(readings_path, layout, settings, out_dir=out)
+    readings, qc = prepared.readings, prepared.qc
+    paths = {"quarantine": prepared.quarantine_path}
     summary = {"readings_log": readings.summary.to_dict(), "qc": qc.summary()}
     n_valid = summary["qc"]["valid"]
     summary["usable"] = bool(n_valid > 0)
@@ -254,7 +374,7 @@ def run_check(readings_path: str | os.PathLike[str], layout: Any,
     return CheckResult(usable=bool(n_valid > 0), n_read=readings.summary.rows_read,
                        n_kept=readings.summary.rows_kept,
                        n_quarantined=readings.summary.rows_quarantined, n_valid=int(n_valid),
-                       paths=paths, summary=summary, readings=readings, qc=qc)
+                       paths=paths, summary=summary, prepared=prepared)
 
 
 def reach_job(layout_path: str | Path, out_dir: str | Path, *, contrast: float = 10.0,
@@ -316,6 +436,7 @@ def reach_job(layout_path: str | Path, out_dir: str | Path, *, contrast: float =
         client = None
         own: list[Any] = []
         if workers and not scheduler:
+            # late: dask.distributed is a heavy import needed only for a local cluster
             from dask.distributed import Client, LocalCluster
 
             cluster = LocalCluster(n_workers=int(workers), threads_per_worker=1, processes=True,
@@ -387,5 +508,5 @@ def report_job(store_path: str | Path, out_dir: str | Path, *,
     return 0
 
 
-__all__ = ["file_sha256", "run_drive", "invert_job", "CheckResult", "run_check",
+__all__ = ["EXIT_PARTIAL", "file_sha256", "run_drive", "invert_job", "CheckResult", "run_check",
            "reach_job", "report_job"]

@@ -23,6 +23,9 @@ from pathlib import Path
 from typing import Any
 
 import numpy as np
+import tomli_w
+
+from tbminv.cache import atomic_write_text
 
 ELECTRODE_KINDS = ("cutterhead", "shield", "wall", "remote", "machine")
 PROTOCOL_GENERATORS = ("pole-pole", "machine-pole", "cutterhead-dipole")
@@ -256,17 +259,17 @@ class Layout:
         return tuple(seen)
 
     # --------------------------------------------------------------- positions
-    def positions_cylindrical(self, cutterhead_deg: float = 0.0,
-                              face_chainage_m: float | None = None
+    def positions_cylindrical(self, face_chainage_m: float | None = None,
+                              cutterhead_deg: float = 0.0
                               ) -> dict[str, tuple[float, float, float] | None]:
         """Electrode positions as (axial_m, radius_m, angle_deg) in the machine frame.
 
         Parameters
         ----------
-        cutterhead_deg : float
-            Logged cutterhead angle, degrees; turns cutterhead electrodes.
         face_chainage_m : float, optional
             Face chainage, m; needed for electrodes fixed in the ground.
+        cutterhead_deg : float
+            Logged cutterhead angle, degrees; turns cutterhead electrodes.
 
         Returns
         -------
@@ -297,11 +300,14 @@ class Layout:
                     out[e.label] = (float(e.chainage_m) - face_chainage_m, r, ang)
         return out
 
-    def positions_machine(self, cutterhead_deg: float = 0.0,
-                          face_chainage_m: float | None = None) -> dict[str, np.ndarray | None]:
-        """Electrode positions (ahead, y, z) in the machine frame, m (None: no point position)."""
+    def positions_machine(self, face_chainage_m: float | None = None,
+                          cutterhead_deg: float = 0.0) -> dict[str, np.ndarray | None]:
+        """Electrode positions (ahead, y, z) in the machine frame, m (None: no point position).
+
+        The arguments are those of :meth:`positions_cylindrical`, in the same order.
+        """
         out: dict[str, np.ndarray | None] = {}
-        for label, cyl in self.positions_cylindrical(cutterhead_deg, face_chainage_m).items():
+        for label, cyl in self.positions_cylindrical(face_chainage_m, cutterhead_deg).items():
             if cyl is None:
                 out[label] = None
                 continue
@@ -315,9 +321,13 @@ class Layout:
 
     def positions_world(self, face_chainage_m: float,
                         cutterhead_deg: float = 0.0) -> dict[str, np.ndarray | None]:
-        """Electrode positions (x, y, z) in the world frame for a face chainage, m."""
+        """Electrode positions (x, y, z) in the world frame for a face chainage, m.
+
+        The arguments are those of :meth:`positions_cylindrical`, in the same order
+        (``face_chainage_m`` required); None where an electrode has no point position.
+        """
         return {k: (None if v is None else machine_to_world(v, face_chainage_m))
-                for k, v in self.positions_machine(cutterhead_deg, face_chainage_m).items()}
+                for k, v in self.positions_machine(face_chainage_m, cutterhead_deg).items()}
 
     # -------------------------------------------------------------------- I/O
     def to_dict(self) -> dict[str, Any]:
@@ -364,10 +374,6 @@ class Layout:
 
     def to_toml(self, path: str | Path) -> Path:
         """Write the layout file (atomically) and return its path."""
-        import tomli_w
-
-        from tbminv.cache import atomic_write_text
-
         return atomic_write_text(path, tomli_w.dumps(self.to_dict()))
 
     @classmethod

@@ -24,10 +24,11 @@ from matplotlib.backends.backend_pdf import PdfPages
 from matplotlib.figure import Figure
 
 import tbminv
+from tbminv.gimli import versions
 from tbminv.materials import HANDBOOK_TABLE, MaterialTable, candidate_table_rows
 from tbminv.plots import section as figures
 from tbminv.results.ahead import AheadSettings, AheadSummary, detect_changes
-from tbminv.results.section import SectionError
+from tbminv.results.section import SectionError, clean_advances
 from tbminv.results.store import open_section
 
 _LOG = logging.getLogger(__name__)
@@ -127,8 +128,6 @@ def _provenance_lines(store: Path, ds: xr.Dataset, shift: str) -> list[str]:
                      f"{p.get('date_created', '')}, tbminv {p.get('tbminv_version', '')}, "
                      f"pyGIMLi {p.get('pygimli_version', '')}, pgcore "
                      f"{p.get('pgcore_version', '')}")
-    from tbminv.gimli import versions
-
     ver = versions()
     lines.append(f"report made {_dt.datetime.now(_dt.UTC):%Y-%m-%dT%H:%M:%SZ} with tbminv "
                  f"{tbminv.__version__}, pyGIMLi {ver.get('pygimli', '?')}, pgcore "
@@ -161,7 +160,7 @@ def write_report(store_path: str | Path, out_dir: str | Path,
     -------
     list of Path
         The report PDF first, then the figures as PNG (for vector figures use
-        :func:`tbminv.figures.save_figure`).
+        :func:`tbminv.plots.section.save_figure`).
     """
     store = Path(store_path)
     out = Path(out_dir)
@@ -190,12 +189,12 @@ def write_report(store_path: str | Path, out_dir: str | Path,
         ("fit", figures.plot_data_fit(ds, highlight=last_adv)),
     ]
     faces = ds["face_chainage_m"].values
-    flags = ds["fit_flag"].values
+    n_flagged = int((~clean_advances(ds)).sum())
     cover = _text_pages("tbminv shift report", [
         ("", [f"shift {shift}: advances {int(ds['advance'].values[0])}-{last_adv} "
               f"({ds.sizes['advance']} advances), face chainage {faces[0]:.1f} to "
               f"{faces[-1]:.1f} m",
-              f"store {store.name}; {int((flags != 0).sum())} advance(s) flagged for their "
+              f"store {store.name}; {n_flagged} advance(s) flagged for their "
               "data fit (not converged or misfit outside limits): shown, never as clean "
               "answers"]),
         ("Change ahead", summary.describe()),

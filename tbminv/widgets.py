@@ -1,9 +1,9 @@
-"""Notebook explorer of the moving section (ipywidgets on top of :mod:`tbminv.figures`).
+"""Notebook explorer of the moving section (ipywidgets on top of :mod:`tbminv.plots.section`).
 
 :class:`SectionExplorer` shows the section ahead of the face at the advance chosen on a slider,
 a toggle for fading the cells the data do not constrain, a chainage slider with the
 resistivity history of that chainage as the face approached, and the data fit with the chosen
-advance marked. All drawing is done by :mod:`tbminv.figures`; the explorer renders the figures
+advance marked. All drawing is done by :mod:`tbminv.plots.section`; the explorer renders the figures
 to PNG into :class:`ipywidgets.Image` views, so it needs no interactive matplotlib backend and
 its callbacks run (and are tested) without a browser.
 
@@ -14,6 +14,7 @@ display falls back to a PNG of the current figures, and :func:`explore` with ``s
 
 from __future__ import annotations
 
+import base64
 import io
 import logging
 from typing import Any
@@ -34,7 +35,7 @@ def _png(fig: Figure, dpi: int = 80) -> bytes:
 
 
 def _in_kernel() -> bool:
-    try:
+    try:  # IPython is optional and heavy: imported only when asked
         from IPython import get_ipython
     except ImportError:  # pragma: no cover
         return False
@@ -43,12 +44,12 @@ def _in_kernel() -> bool:
 
 
 class SectionExplorer:
-    """Sliders over advances and chainages of a section, drawn with :mod:`tbminv.figures`.
+    """Sliders over advances and chainages of a section, drawn with :mod:`tbminv.plots.section`.
 
     Parameters
     ----------
     ds : xarray.Dataset
-        Section (machine frame) from :func:`tbminv.section.open_section`.
+        Section (machine frame) from :func:`tbminv.results.store.open_section`.
     dpi : int
         Resolution of the rendered figures.
 
@@ -66,7 +67,7 @@ class SectionExplorer:
     """
 
     def __init__(self, ds: xr.Dataset, *, dpi: int = 80) -> None:
-        import ipywidgets as w
+        import ipywidgets as w  # optional (notebook extra): imported only for the explorer
 
         self.ds = ds
         self.dpi = dpi
@@ -142,12 +143,10 @@ class SectionExplorer:
     def _repr_mimebundle_(self, **kwargs: Any) -> dict[str, Any]:
         bundle = dict(self.widget._repr_mimebundle_(**kwargs) or {})
         # a static view that cannot render widgets shows the current section as PNG
-        import base64
-
         bundle["image/png"] = base64.b64encode(self.section_view.value).decode("ascii")
         bundle["text/plain"] = (f"SectionExplorer: advances {self.advance.options[0]}-"
                                 f"{self.advance.options[-1]} (widgets not rendered here: "
-                                "see the PNG, or use tbminv.figures)")
+                                "see the PNG, or use tbminv.plots.section)")
         return bundle
 
 

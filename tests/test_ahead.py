@@ -6,12 +6,24 @@ chainage whose sharpness fades with distance ahead, coverage fading ahead and ou
 
 from __future__ import annotations
 
-import importlib.util
+import subprocess
+import sys
+from pathlib import Path
 
+import numpy as np
 import pytest
 from test_section import make_section
 
-from tbminv.results.ahead import LEVELS, AheadSettings, AheadSettingsError, detect_changes
+from tbminv.results.ahead import (
+    LEVELS,
+    AheadSettings,
+    AheadSettingsError,
+    Pick,
+    _groups,
+    _slope,
+    detect_changes,
+)
+from tbminv.results.store import open_section
 
 
 def test_stationary_contact_from_contact_fits_is_firm():
@@ -76,24 +88,9 @@ def test_settings_from_toml(tmp_path):
         AheadSettings.from_toml(p)
 
 
-def _missing(module):
-    return importlib.util.find_spec(module) is None
-
-
-needs_chain = pytest.mark.skipif(_missing("tbminv.invert") or _missing("tbminv.simulate"),
-                                 reason="end-to-end detection needs tbminv.simulate and "
-                                        "tbminv.invert")
-
-
 def _drive(tmp_path, name):
     """Invert a synthetic drive (made with the 3D model by tests/data/make_drive_fixtures.py,
-    no inverse crime) through the command line of DESIGN 3.5 and open the section store."""
-    import subprocess
-    import sys
-    from pathlib import Path
-
-    from tbminv.results.store import open_section
-
+    no inverse crime) through the command line (``tbminv invert``) and open the section store."""
     data = Path(__file__).parent / "data"
     settings = tmp_path / "settings.toml"
     # 21 reciprocal pairs per advance: one error model for the whole log
@@ -110,7 +107,6 @@ def _drive(tmp_path, name):
 
 
 @pytest.mark.slow
-@needs_chain
 @pytest.mark.parametrize("name", ["contact10_seed11", "contact01_seed13"])
 def test_end_to_end_contact_reported_two_diameters_ahead(tmp_path, name):
     # 10:1 and 1:10 contacts at chainage 30 m, 30 m ahead of the first face, faces every 1.5 m,
@@ -124,7 +120,6 @@ def test_end_to_end_contact_reported_two_diameters_ahead(tmp_path, name):
 
 
 @pytest.mark.slow
-@needs_chain
 def test_end_to_end_homogeneous_drive_reports_nothing(tmp_path):
     # homogeneous 50 ohm-m, 3D-simulated, 3 % noise, seed 17
     ds = _drive(tmp_path, "homogeneous3pc_seed17")
@@ -152,10 +147,6 @@ def test_contact_fit_without_around_value_uses_profile():
 def test_pick_slope_is_weighted_least_squares():
     # reference: numpy.polyfit with weights 1/sigma (its documented convention for Gaussian
     # uncertainties) gives the same weighted slope
-    import numpy as np
-
-    from tbminv.results.ahead import Pick, _slope
-
     faces = np.array([9.0, 10.5, 12.0, 13.5, 15.0, 16.5, 18.0])
     chain = np.array([31.1, 32.2, 26.2, 31.6, 25.7, 26.6, 28.5])
     half = np.array([14.2, 12.2, 9.9, 8.1, 7.2, 5.6, 4.2])      # 95 % half-widths, m
@@ -170,10 +161,6 @@ def test_pick_slope_is_weighted_least_squares():
 
 def test_far_wide_picks_do_not_hide_a_stationary_contact():
     # early far picks scatter within their wide intervals; the later sharp ones stay put
-    import numpy as np
-
-    from tbminv.results.ahead import Pick, _groups, _slope
-
     faces = np.arange(7) * 1.5 + 9.0
     chain = np.array([31.0, 32.0, 26.5, 31.5, 26.0, 29.6, 30.1])
     half = np.array([14.0, 12.0, 10.0, 8.0, 7.0, 2.0, 1.5])

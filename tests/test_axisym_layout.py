@@ -84,12 +84,16 @@ def test_modelling_inversion_smoke():
     """pyGIMLi's Inversion on the axisymmetric Modelling recovers a homogeneous ground
     (invariant: homogeneous ground returns its resistivity; common practice, no source)."""
     from tbminv.gimli import pg
-    from tbminv.inversion.operator import ImageModelling, build_parameter_grid
+    from tbminv.inversion.grid import build_parameter_grid
+    from tbminv.inversion.operator import DriveOperator, ImageModelling
+    from tbminv.inversion.settings import InversionSettings
 
     lay = _layout()
-    model = AxisymLayoutSolver(lay, settings=COARSE)
-    grid = build_parameter_grid(model, x_edges=[-12, -6, -3, 1.0, 3, 6, 12, 30],
-                                r_edges=[1.0, 2.0, 4.0, 8.0, 20.0])
+    grid = build_parameter_grid(lay, InversionSettings(cell_m=3.0, ahead_m=12.0, behind_m=12.0,
+                                                       radius_m=8.0, growth=2.0),
+                                domain_m=300.0)
+    # the operator's forward mesh carries the parameter grid lines
+    model = DriveOperator(lay, grid, 0.0, 0.0, AxisymLayoutSolver(lay, settings=COARSE)).fwd
     # numeric geometric factors from a homogeneous run with the bodies in (k = rho / R)
     r1 = model.response(np.full(len(model.forward.ground_cells), 100.0))
     sel = np.nonzero(r1 > 0)[0]
@@ -113,18 +117,21 @@ def test_modelling_inversion_smoke():
     assert math.isclose(float(np.median(res)), 100.0, rel_tol=0.1)
 
 
-def test_simulate_model_signature():
-    """The simulate-registry signature gives the protocol's numbers for (a, b, m, n) tuples."""
-    from tbminv.forward.axisym.layout import simulate_model
-
+def test_registry_model_takes_label_tuples_and_reciprocals():
+    """``AxisymModel.response(..., measurements)`` gives the closed-form numbers for (a, b, m, n)
+    tuples (empty for a pole) and their reciprocals (no body, no cavity)."""
     lay = _layout(model_body=False, model_cavity=False)
-    quads = [("C1", "C2", "C3", "S1"), ("C1", "", "C3", "")]
+    quads = [("C1", "C2", "C3", "S1"), ("C1", "", "C3", ""), ("C3", "S1", "C1", "C2")]
     sc = Scenario.homogeneous(40.0)
-    r = simulate_model(lay, sc, 100.0, 0.0, quads)
+    r = AxisymModel(lay).response(sc, 100.0, 0.0, quads)
     lay2 = Layout.from_dict({**lay.to_dict(), "protocol": {}, "measurement": [
-        {"a": "C1", "b": "C2", "m": "C3", "n": "S1"}, {"a": "C1", "m": "C3"}]}, source="<t>")
+        {"a": "C1", "b": "C2", "m": "C3", "n": "S1"}, {"a": "C1", "m": "C3"},
+        {"a": "C3", "b": "S1", "m": "C1", "n": "C2"}]}, source="<t>")
     ref = layout_response(lay2, sc, 100.0)
     np.testing.assert_allclose(r, ref, rtol=5e-3)
+    np.testing.assert_allclose(r[2], r[0], rtol=1e-6)       # reciprocity
+    with pytest.raises(ValueError, match="unknown electrode 'X9'"):
+        AxisymModel(lay).response(sc, 100.0, 0.0, [("C1", None, "X9", None)])
 
 
 @pytest.mark.parametrize("contact_ahead_m", [0.37, 2.9, 13.3])

@@ -81,3 +81,37 @@ def test_table_round_trip(setup, tmp_path):
     again = ResponseTable.load(table.save(tmp_path / "t.npz"))
     np.testing.assert_array_equal(again.r_ohm, table.r_ohm)
     assert again.rho_ref_ohmm == table.rho_ref_ohmm
+
+
+def test_null_coupled_and_failed_readings_are_left_out_and_the_fit_runs(setup):
+    # a reading with zero homogeneous response (a dipole symmetric about its potential
+    # electrodes) and one whose table has a failed (NaN) forward run: the relative response
+    # r / r0 of both is undefined; they are left out, the rest fits as without them
+    _, model, table = setup
+    r_tab, r0 = table.r_ohm.copy(), table.r0_ohm.copy()
+    r_tab[..., 0], r0[0] = 0.0, 0.0
+    r_tab[2, 3, 1] = np.nan
+    bad = ResponseTable(table.contrasts, table.distances_m, r_tab, r0, table.rho_ref_ohmm,
+                        table.model)
+    fit = ContactFitter(bad)
+    assert sorted(fit.left_out) == [0, 1]
+    assert "null-coupled" in fit.left_out[0] and "not finite" in fit.left_out[1]
+    faces = np.arange(0.0, 30.0 - 0.5 * D, 1.5)
+    r = drive(model, 10.0, 0, faces)
+    err = np.full_like(r, 0.02)
+    got = fit.fit_drive(r, err, faces)
+    use = np.ones_like(r, bool)
+    use[:, :2] = False
+    ref = ContactFitter(table).fit_drive(r, err, faces, use=use)
+    assert [g.found for g in got] == [e.found for e in ref] and any(g.found for g in got)
+    for g, e in zip(got, ref):
+        np.testing.assert_allclose([g.ahead_m, g.chi2, g.p_homogeneous],
+                                   [e.ahead_m, e.chi2, e.p_homogeneous], rtol=1e-9)
+
+
+def test_table_without_any_usable_reading_is_refused(setup):
+    _, _, table = setup
+    zero = ResponseTable(table.contrasts, table.distances_m, np.zeros_like(table.r_ohm),
+                         np.zeros_like(table.r0_ohm), table.rho_ref_ohmm, table.model)
+    with pytest.raises(ValueError, match="none of its .* readings"):
+        ContactFitter(zero)

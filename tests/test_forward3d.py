@@ -14,8 +14,13 @@ import numpy as np
 import pytest
 
 from tbminv.forward.fem3d.mesh import MeshSettings, TunnelGeometry, build_mesh, electrode_points
-from tbminv.forward.fem3d.model import Fem3DSettings, Forward3D, unit_potentials
-from tbminv.forward.ratio import apparent_resistivity, geometric_factors
+from tbminv.forward.fem3d.model import Fem3DSettings, Forward3D, Model3D, unit_potentials
+from tbminv.forward.ratio import (
+    apparent_resistivity,
+    clear_memory_cache,
+    geometric_factors,
+    geometric_factors_from_response,
+)
 from tbminv.gimli import configure_operator, ert, pg
 from tbminv.ground import Scenario
 from tbminv.layout import Layout
@@ -232,9 +237,15 @@ def test_geometric_factors_homogeneous(tmp_path, monkeypatch):
     st = Fem3DSettings(p2=False, mesh=SMALL)
     k = geometric_factors(lay, quads, FACE, settings=st)
     assert np.all(np.isfinite(k))
-    assert list((tmp_path / "geofactor").glob("*.json"))
+    assert list((tmp_path / "ratio").glob("*.json"))
+    clear_memory_cache()                                    # the second call reads the disk
     k2 = geometric_factors(lay, quads, FACE, settings=st)
     np.testing.assert_array_equal(k, k2)
+    # the same factors from the registry model object, and from the primitive
+    k3 = geometric_factors(lay, quads, FACE, model=Model3D(lay, st))
+    np.testing.assert_array_equal(k, k3)
+    r0 = Forward3D(lay, st).run(Scenario.homogeneous(100.0), FACE, 0.0, quads).r_ohm
+    np.testing.assert_array_equal(geometric_factors_from_response(r0, 100.0), k)
     for rho in (30.0, 1000.0):
         r = Forward3D(lay, st).run(Scenario.homogeneous(rho), FACE, 0.0, quads).r_ohm
         np.testing.assert_allclose(apparent_resistivity(r, k), rho, rtol=0.01)

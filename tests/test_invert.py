@@ -18,9 +18,8 @@ from tbminv.inversion.image import shift_model
 from tbminv.inversion.settings import InversionSettings
 from tbminv.jobs import run_drive
 from tbminv.layout import load_layout
-from tbminv.readings.advance import advance_data
-from tbminv.readings.qc import QCSettings, run_qc
-from tbminv.readings.reader import read_readings
+from tbminv.readings.advance import prepare_advances
+from tbminv.readings.qc import QCSettings
 
 DATA = Path(__file__).parent / "data"
 D = 6.0
@@ -34,9 +33,7 @@ def layout():
 
 
 def drive_data(name: str, layout):
-    readings = read_readings(DATA / f"drive_{name}.csv", layout)
-    qc = run_qc(readings, QC)
-    return advance_data(qc.table, layout)
+    return prepare_advances(DATA / f"drive_{name}.csv", layout, QC).advances
 
 
 def test_parameter_grid_leaves_steel_and_bore_out(layout):

@@ -131,7 +131,19 @@ def test_cutterhead_turns_with_logged_angle_shield_does_not():
     np.testing.assert_allclose(pos["S1"], [-2.0, -3.05, 0.0], atol=1e-12)
     cyl = layout.positions_cylindrical(cutterhead_deg=300.0, face_chainage_m=100.0)
     assert cyl["C1"] == pytest.approx((0.05, 1.0, 300.0))
-    assert layout.positions_cylindrical(400.0, 100.0)["C1"][2] == pytest.approx(40.0)
+    assert layout.positions_cylindrical(100.0, 400.0)["C1"][2] == pytest.approx(40.0)
+
+
+def test_positions_take_face_then_angle():
+    # all three position functions read (face_chainage_m, cutterhead_deg) in that order;
+    # expected values from the frame convention in DEVELOPERS.md (y = -r sin a, z = r cos a)
+    layout = Layout.from_dict(base())
+    assert layout.positions_cylindrical(100.0, 90.0)["W1"][0] == pytest.approx(-5.0)
+    assert layout.positions_cylindrical(100.0, 90.0)["C1"] == pytest.approx((0.05, 1.0, 90.0))
+    np.testing.assert_allclose(layout.positions_machine(100.0, 90.0)["C1"], [0.05, -1.0, 0.0],
+                               atol=1e-12)
+    np.testing.assert_allclose(layout.positions_world(100.0, 90.0)["C1"], [100.05, -1.0, 0.0],
+                               atol=1e-12)
 
 
 def test_world_frame_and_wall_electrodes():

@@ -167,19 +167,20 @@ def test_image_contact_reads_the_axis_column():
 
 
 @pytest.mark.slow
-def test_p1_simulation_hook_matches_the_3d_model():
-    # the registered "3d-p1" model is pyGIMLi's 3D forward with linear elements, and obeys
-    # reciprocity (swap current and potential pairs) like any linear resistor network
+def test_p1_simulation_model_matches_the_3d_model():
+    # the comparison's simulation model is pyGIMLi's 3D forward with linear elements on the
+    # default mesh, and obeys reciprocity (swap current and potential pairs) like any linear
+    # resistor network
     from tbminv.forward.fem3d.model import Fem3DSettings, forward3d
     from tbminv.ground import Scenario
-    from tbminv.studies.simulate import get_model
 
-    assert M.register_simulate_models() == ("3d-p1",)
     lay = M.compact_layout(load_layout(demo_layout_path()), walls=False)
+    model = M.model_3d_p1(lay)
+    assert model.settings == Fem3DSettings(p2=False)
     quads = [q.labels() for q in lay.measurements][:4]
     recip = [(m, n, a, b) for a, b, m, n in quads]
     sc = Scenario.homogeneous(100.0)
-    r = get_model("3d-p1")(lay, sc, 1222.0, 0.0, quads)
+    r = model.response(sc, 1222.0, 0.0, quads)
     ref = forward3d(lay, sc, 1222.0, 0.0, quads, settings=Fem3DSettings(p2=False))
     np.testing.assert_allclose(r, ref, rtol=1e-12)
     rr = forward3d(lay, sc, 1222.0, 0.0, recip,

@@ -1,11 +1,12 @@
 """Readings log reader: quarantine reasons, whole-file errors, corruption (property-based).
 
-The log format and the quarantine columns are the contract of the design note, section 3.2.
+The log format and the quarantine columns are the contract in DEVELOPERS.md ("File formats").
 """
 
 from __future__ import annotations
 
 import hashlib
+import math
 import random
 from pathlib import Path
 
@@ -16,7 +17,10 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 from tbminv.layout import demo_layout_path, load_layout
+from tbminv.readings.advance import advance_data, prepare_advances
+from tbminv.readings.qc import QCSettings
 from tbminv.readings.reader import (
+    FRAME_LABEL,
     QUARANTINE_COLUMNS,
     REASONS,
     REQUIRED_COLUMNS,
@@ -93,7 +97,7 @@ def test_valid_log_reads_completely(tmp_path):
     assert [int(a) for a, _ in r.by_advance()] == sorted({int(x["advance"]) for x in rows})
 
 
-# each promised quarantine reason (contract: design note 3.2; the list of reasons is ours)
+# each promised quarantine reason (contract: DEVELOPERS.md file formats; the reasons are ours)
 @pytest.mark.parametrize("changes, reason", [
     ({"voltage_v": ""}, "missing field"),
     ({"a": ""}, "missing field"),
@@ -273,6 +277,94 @@ def test_parquet_same_as_csv(tmp_path):
     (tmp_path / "junk.parquet").write_bytes(b"not parquet at all")
     with pytest.raises(ReadingsError, match="Parquet"):
         read_readings(tmp_path / "junk.parquet", LAYOUT)
+
+
+def typed_frame(rows: list[dict[str, str]]) -> pd.DataFrame:
+    """The log as a pandas DataFrame with numeric columns as numbers (as a program holds it)."""
+    frame = pd.DataFrame(rows, columns=COLUMNS)
+    for c in NUMERIC:
+        frame[c] = pd.to_numeric(frame[c], errors="coerce")
+    return frame
+
+
+def test_dataframe_reads_like_the_file(tmp_path):
+    rows = valid_rows(30)
+    rows[7]["current_a"] = "0"                     # row 7 of the frame, line 9 of the file
+    rows[12]["a"] = "NOPE"                         # row 12, line 14
+    csv_path = write_log(tmp_path / "log.csv", rows)
+    from_file = read_readings(csv_path, LAYOUT)
+    frame = typed_frame(rows)
+    frame.loc[20, "voltage_v"] = np.nan            # NaN is an empty cell: row 20, line 22
+    from_frame = read_readings(frame, LAYOUT)
+    assert from_frame.summary.format == "dataframe" and from_frame.source == FRAME_LABEL
+    assert quarantine_reasons(from_frame) == {7: {"zero or negative current"},
+                                              12: {"unknown electrode label"},
+                                              20: {"missing field"}}
+    assert set(from_frame.quarantine["file"]) == {FRAME_LABEL}
+    assert from_frame.quarantine.loc[from_frame.quarantine["line"] == 20, "field"].item() \
+        == "voltage_v"
+    # the frame's rows are its positions: file line - 2 for the rows both keep
+    kept = from_file.table[from_file.table["line"] != 22].reset_index(drop=True)
+    assert from_frame.table["line"].tolist() == (kept["line"] - 2).tolist()
+    cols = ["advance", "face_chainage_m", "current_a", "voltage_v", "cutterhead_deg",
+            "stack_n", "time", "a", "b", "m", "n", "crew_note"]
+    pd.testing.assert_frame_equal(from_frame.table[cols], kept[cols])
+    assert read_readings(frame, LAYOUT, label="shift B").quarantine["file"].iloc[0] == "shift B"
+
+
+def test_dataframe_bad_columns_raise_naming_the_frame():
+    frame = typed_frame(valid_rows(5)).drop(columns=["voltage_v"])
+    with pytest.raises(ReadingsError, match="<DataFrame>.*voltage_v"):
+        read_readings(frame, LAYOUT)
+    twice = pd.concat([typed_frame(valid_rows(5)), typed_frame(valid_rows(5))[["a"]]], axis=1)
+    with pytest.raises(ReadingsError, match="named twice"):
+        read_readings(twice, LAYOUT)
+
+
+def test_prepare_advances_same_for_file_and_frame(tmp_path):
+    rows = valid_rows(120, seed=3)
+    rows[5]["current_a"] = "-1"
+    path = write_log(tmp_path / "log.csv", rows)
+    qs = QCSettings(fallback_a_ohm=1e-3, fallback_b=0.02)   # few reciprocals: fallback model
+    a = prepare_advances(path, LAYOUT, qs, out_dir=tmp_path / "out")
+    b = prepare_advances(typed_frame(rows), LAYOUT, qs)
+    assert a.source == str(path) and b.source == FRAME_LABEL
+    assert a.quarantine_path == tmp_path / "out" / "quarantine.csv"
+    assert pd.read_csv(a.quarantine_path)["line"].tolist() == [7]
+    assert b.quarantine_path is None and b.readings.quarantine["line"].tolist() == [5]
+    assert [d.advance for d in a.advances] == [d.advance for d in b.advances]
+    assert a.advances and all(np.isfinite(d.r_ohm).any() for d in a.advances)
+    for x, y in zip(a.advances, b.advances):
+        np.testing.assert_allclose(x.r_ohm, y.r_ohm, rtol=1e-12, equal_nan=True)
+
+
+def test_advance_data_weights_readings_by_their_error():
+    # inverse-variance weighting of repeated readings: common practice, no source; the error
+    # of one reading is the model's (pair-difference) error / sqrt(2)
+    quads = [q.labels() for q in LAYOUT.measurements]
+    i = quads.index(("C1", "R1", "C2", "R1"))        # R1: remote at infinity (a pole)
+    j = quads.index(("M0", "R2", "C1", "R1"))
+    rows = [  # advance, a, b, m, n, r_ohm, err_ohm, valid
+        (1, "C1", None, "C2", None, 2.0, 0.1, True),
+        (1, "C2", "R1", "C1", "R1", 4.0, 0.2, True),    # its reciprocal, R1 written out
+        (1, "C1", None, "C2", None, 99.0, 0.1, False),  # flagged: left out
+        (1, "M0", "R2", "C1", None, 5.0, np.nan, True),  # no error model: left out
+        (1, "W1", "W2", "W3", "W4", 1.0, 0.1, True),    # not in the protocol: left out
+        (2, "M0", "R2", "C1", None, 3.0, 0.3, True),
+    ]
+    t = pd.DataFrame(rows, columns=["advance", "a", "b", "m", "n", "r_ohm", "err_ohm", "valid"])
+    t["face_chainage_m"] = [10.0, 10.0, 10.0, 10.0, 10.0, 11.5]
+    t["cutterhead_deg"] = [np.nan, 30.0, 50.0, np.nan, np.nan, np.nan]
+    t["time"] = pd.to_datetime([None, "2026-01-05T06:00:00Z", None, None, None, None], utc=True)
+    first, second = advance_data(t, LAYOUT)
+    w1, w2 = 2.0 / 0.1**2, 2.0 / 0.2**2
+    assert first.r_ohm[i] == pytest.approx((w1 * 2.0 + w2 * 4.0) / (w1 + w2))
+    assert first.rel_error[i] == pytest.approx(1.0 / math.sqrt(w1 + w2) / first.r_ohm[i])
+    assert np.isnan(first.r_ohm[j]) and np.isfinite(first.r_ohm).sum() == 1
+    assert (first.n_readings, first.n_valid, first.cutterhead_deg) == (5, 2, 40.0)
+    assert first.time == "2026-01-05T06:00:00+00:00"
+    assert second.r_ohm[j] == 3.0 and second.rel_error[j] == pytest.approx(0.1 / math.sqrt(2))
+    assert (second.face_chainage_m, second.cutterhead_deg, second.time) == (11.5, 0.0, None)
 
 
 # ------------------------------------------------------------------ property-based

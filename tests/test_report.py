@@ -15,6 +15,7 @@ from pypdf import PdfReader
 from test_section import make_section
 
 import tbminv
+from tbminv.cli import main
 from tbminv.plots import section as figures
 from tbminv.report import write_report
 from tbminv.results.store import append_shift, open_section
@@ -63,8 +64,6 @@ def test_report_of_named_shift_and_cli(store, tmp_path, capsys):
     paths = write_report(store, tmp_path / "a", shift="day-1")
     text = _words(" ".join(p.extract_text() for p in PdfReader(paths[0]).pages))
     assert "shift day-1: advances 0-5" in text
-    from tbminv.cli import main
-
     rc = main(["report", str(store), "--out", str(tmp_path / "cli")])
     assert rc == 0
     out = capsys.readouterr().out
@@ -101,8 +100,6 @@ def test_ahead_profile_band_contains_profile(store):
 
 
 def test_report_cli_takes_ahead_settings_and_site_table(store, tmp_path, capsys):
-    from tbminv.cli import main
-
     site = tmp_path / "site.csv"
     site.write_text("# source: face probes, rings 10-40 (invented)\nname,low_ohmm,high_ohmm\n"
                     "grey silt,5,30\nsand and gravel,60,400\n")

@@ -10,16 +10,20 @@ import sys
 import textwrap
 import time
 from pathlib import Path
+from types import SimpleNamespace
 
 import numpy as np
 import pytest
+import xarray as xr
 
 from tbminv.inversion.outcome import AdvanceResult, ContactFit
 from tbminv.results.section import (
     FLAG_MISFIT_HIGH,
     FLAG_NOT_CONVERGED,
     SectionError,
+    axis_median_log10,
     build_section,
+    clean_advances,
     shift_advances,
     world_view,
 )
@@ -99,7 +103,7 @@ def test_build_section_contract_variables_and_cf_attrs():
     ds = make_section(rho_beyond=12.0, flagged=(3,))
     assert dict(ds.sizes) | {} == {"advance": 5, "ahead": 69, "radius": 16, "iteration": 4}
     assert ds["resistivity"].dims == ("advance", "ahead", "radius")
-    # DESIGN 3.4 variables
+    # the store's variables (DEVELOPERS.md, file formats)
     for name in ("resistivity", "conductivity", "coverage", "chi2", "rrms", "iterations",
                  "lambda", "face_chainage_m", "contact_ahead_m", "contact_ahead_lo_m",
                  "contact_ahead_hi_m", "contact_chainage_m", "resistivity_beyond",
@@ -194,6 +198,28 @@ def test_world_view_puts_contact_at_its_chainage():
     a0 = w["resistivity"].sel(advance=0, radius=0.25)
     assert np.isnan(a0.sel(x=1195.0, method="nearest"))
     assert np.isfinite(a0.sel(x=1229.0, method="nearest"))
+
+
+def test_clean_advances_from_fit_flag():
+    ds = make_section(flagged=(3,))
+    assert clean_advances(ds).tolist() == [True, True, True, False, True]
+    assert clean_advances(ds.drop_vars("fit_flag")).all()   # no flags stored: all clean
+
+
+def test_axis_median_log10_of_homogeneous_and_step_ground():
+    # invented ground: 80 ohm-m around, 800 ohm-m beyond chainage 1210 m (face 1200 m)
+    ds = make_section(advances=[0], rho_beyond=800.0, contact_chainage_m=1210.0)
+    ahead = ds["ahead"].values
+    covered = axis_median_log10(ds, 0, 3.0)
+    every = axis_median_log10(ds, 0, 3.0, covered_only=False)
+    near = (ahead >= 0) & (ahead <= 5)
+    np.testing.assert_allclose(every[near], math.log10(80.0), atol=0.01)
+    np.testing.assert_allclose(every[ahead >= 20], math.log10(800.0), atol=0.01)
+    assert np.isnan(every[ahead < 0]).all()            # inside the machine: no value
+    inside = ds["radius"].values <= 3.0
+    none_covered = ~ds["covered"].isel(advance=0).values[:, inside].astype(bool).any(axis=1)
+    assert none_covered.any() and np.isnan(covered[none_covered]).all()
+    np.testing.assert_allclose(covered[near & ~none_covered], math.log10(80.0), atol=0.01)
 
 
 def test_store_append_replace_and_reopen(tmp_path):
@@ -297,8 +323,6 @@ def test_kill_during_append_leaves_store_intact(tmp_path):
 
 
 def test_contact_fit_from_estimate_duck_typed():
-    from types import SimpleNamespace
-
     est = SimpleNamespace(found=True, ahead_m=12.0, ahead_lo_m=10.5, ahead_hi_m=math.nan,
                           chainage_m=1230.0, resistivity_around_ohmm=80.0,
                           resistivity_beyond_ohmm=12.0, p_no_contact=0.001, p_homogeneous=1e-5)
@@ -310,8 +334,6 @@ def test_contact_fit_from_estimate_duck_typed():
 
 def test_store_readable_by_netcdf4_library(tmp_path):
     pytest.importorskip("netCDF4")
-    import xarray as xr
-
     append_shift(tmp_path / "s.nc", make_section(range(3), rho_beyond=12.0), shift="A")
     with xr.open_dataset(tmp_path / "s.nc", engine="netcdf4") as ds:
         assert ds.attrs["Conventions"] == "CF-1.8"

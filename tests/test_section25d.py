@@ -6,7 +6,11 @@ import numpy as np
 import pytest
 
 from tbminv.forward.cartesian25d import Cartesian25DModel, Cartesian25DSettings
+from tbminv.forward.fem3d.mesh import MeshSettings
+from tbminv.forward.fem3d.model import Fem3DSettings, Model3D
+from tbminv.forward.ratio import clear_memory_cache
 from tbminv.forward.registry import make_model
+from tbminv.gimli import ert_data_container
 from tbminv.ground import Scenario
 from tbminv.layout import Layout
 
@@ -57,3 +61,37 @@ def test_steel_slab_bias_is_large():
     hom = Scenario.homogeneous(100.0)
     ratio = with_steel.response(hom, 0.0)[0] / without.response(hom, 0.0)[0]
     assert ratio < 0.5
+
+
+def test_data_container_builder_poles_and_fields():
+    data = ert_data_container([(0.0, -1.0), (2.0, -1.0), (4.0, -1.0)],
+                              [(0, -1, 1, -1), (0, 1, 2, -1)], {"rhoa": [10.0, 20.0]})
+    assert data.sensorCount() == 3 and data.size() == 2
+    np.testing.assert_array_equal(np.array(data["b"]), [-1, 1])
+    np.testing.assert_array_equal(np.array(data["k"]), [1.0, 1.0])
+    np.testing.assert_array_equal(np.array(data["rhoa"]), [10.0, 20.0])
+    with pytest.raises(ValueError, match="'err'"):
+        ert_data_container([(0.0, 0.0)], [(0, -1, 0, -1)], {"err": [0.1, 0.2]})
+
+
+@pytest.mark.slow
+def test_ratio_is_3d_over_25d_homogeneous_and_shared_by_faces(tmp_path, monkeypatch):
+    # Fox et al. (1980, Geophysics 45(1):75-93): the corrected response of homogeneous ground
+    # is the 3D one; with every electrode on the machine the factors serve every face
+    monkeypatch.setenv("TBMINV_CACHE_DIR", str(tmp_path))
+    clear_memory_cache()
+    lay = layout(model_body=True)
+    ref = Model3D(lay, Fem3DSettings(p2=False, mesh=MeshSettings(
+        box_m=120.0, n_segments=8, quality=1.5, electrode_size_m=0.3, face_size_m=1.5,
+        growth=2.0, refine_ahead_m=20.0)))
+    section = Cartesian25DModel(lay, reference=ref)
+    hom = Scenario.homogeneous(100.0)
+    r3 = ref.response(hom, 0.0)
+    got = section.ratio(0.0)
+    np.testing.assert_allclose(got, r3 / section.uncorrected().response(hom, 0.0), rtol=1e-9)
+    np.testing.assert_allclose(section.response(hom, 0.0), r3, rtol=1e-9)
+    entries = sorted((tmp_path / "ratio").glob("*.json"))
+    assert len(entries) == 2                     # R_3D(hom) and R_2.5D(hom)
+    clear_memory_cache()
+    np.testing.assert_array_equal(section.ratio(37.0), got)
+    assert sorted((tmp_path / "ratio").glob("*.json")) == entries

@@ -1,4 +1,4 @@
-"""Checks of the synthetic-drive simulator (readings-log format, reciprocals, noise, registry)."""
+"""Checks of the synthetic-drive simulator (readings-log format, reciprocals, noise, models)."""
 
 from __future__ import annotations
 
@@ -6,16 +6,10 @@ import numpy as np
 import pandas as pd
 import pytest
 
+from tbminv.forward.registry import ModelNotAvailable
 from tbminv.ground import Scenario
 from tbminv.layout import Layout
-from tbminv.studies.simulate import (
-    COLUMNS,
-    MODELS,
-    get_model,
-    register_model,
-    simulate_drive,
-    write_readings,
-)
+from tbminv.studies.simulate import COLUMNS, simulate_drive, write_readings
 
 
 def _layout(body: bool = False) -> Layout:
@@ -33,29 +27,31 @@ def _layout(body: bool = False) -> Layout:
                         {"a": "C1", "b": "S1", "m": "C2", "n": ""}]}, source="<sim test>")
 
 
-def _point_model(layout, scenario, face, angle, quads):
+class PointModel:
     """Full-space point-source model (rho I/(4 pi r), Telford et al. 1990 sec. 8.2) on the
-    electrode positions: a fast stand-in with the registry's call signature."""
-    pos = layout.positions_machine(angle, face)
-    rho = scenario.background_resistivity_ohmm
+    electrode positions: a fast stand-in with the forward-model protocol."""
 
-    def g(p, q):
-        if p is None or q is None or pos[p] is None or pos[q] is None:
-            return 0.0
-        return rho / (4 * np.pi * np.linalg.norm(pos[p] - pos[q]))
-    return np.array([g(a, m) - g(a, n) - g(b, m) + g(b, n) for a, b, m, n in quads])
+    def __init__(self, layout):
+        self.layout = layout
+        self.calls = 0
 
+    def response(self, scenario, face, angle=0.0, measurements=None):
+        self.calls += 1
+        quads = [tuple(q) for q in measurements] if measurements is not None \
+            else [q.labels() for q in self.layout.measurements]
+        pos = self.layout.positions_machine(face, angle)
+        rho = scenario.background_resistivity_ohmm
 
-@pytest.fixture(autouse=True)
-def _point_registered():
-    register_model("point-test", _point_model, replace=True)
-    yield
-    MODELS.pop("point-test", None)
+        def g(p, q):
+            if p is None or q is None or pos[p] is None or pos[q] is None:
+                return 0.0
+            return rho / (4 * np.pi * np.linalg.norm(pos[p] - pos[q]))
+        return np.array([g(a, m) - g(a, n) - g(b, m) + g(b, n) for a, b, m, n in quads])
 
 
 def test_log_format_and_reciprocals():
     lay = _layout()
-    df = simulate_drive(lay, Scenario.homogeneous(50.0), [100.0, 101.5], model="point-test",
+    df = simulate_drive(lay, Scenario.homogeneous(50.0), [100.0, 101.5], model=PointModel(lay),
                         current_a=0.5, cutterhead_deg=[0.0, 30.0])
     assert list(df.columns) == list(COLUMNS)
     assert df["advance"].tolist() == [1] * 4 + [2] * 4
@@ -80,13 +76,11 @@ def test_noise_reproducible_and_sized():
     lay = _layout()
     sc = Scenario.homogeneous(50.0)
     faces = np.arange(100.0, 140.0, 0.5)
-    clean = simulate_drive(lay, sc, faces, model="point-test")
-    a = simulate_drive(lay, sc, faces, model="point-test", noise_rel=0.02, noise_abs_v=1e-4,
-                       seed=7)
-    b = simulate_drive(lay, sc, faces, model="point-test", noise_rel=0.02, noise_abs_v=1e-4,
-                       seed=7)
-    c = simulate_drive(lay, sc, faces, model="point-test", noise_rel=0.02, noise_abs_v=1e-4,
-                       seed=8)
+    point = PointModel(lay)
+    clean = simulate_drive(lay, sc, faces, model=point)
+    a = simulate_drive(lay, sc, faces, model=point, noise_rel=0.02, noise_abs_v=1e-4, seed=7)
+    b = simulate_drive(lay, sc, faces, model=point, noise_rel=0.02, noise_abs_v=1e-4, seed=7)
+    c = simulate_drive(lay, sc, faces, model=point, noise_rel=0.02, noise_abs_v=1e-4, seed=8)
     pd.testing.assert_frame_equal(a, b)
     assert not np.allclose(a.voltage_v, c.voltage_v)
     z = (a.voltage_v - clean.voltage_v) / a.voltage_std_v
@@ -96,15 +90,37 @@ def test_noise_reproducible_and_sized():
 
 
 def test_unknown_model_lists_models():
-    with pytest.raises(ValueError, match=r"unknown forward model 'cubic'.*3d"):
+    with pytest.raises(ModelNotAvailable, match=r"unknown forward model 'cubic'.*3d"):
         simulate_drive(_layout(), Scenario.homogeneous(50.0), [0.0], model="cubic")
-    with pytest.raises(ValueError, match="already registered"):
-        register_model("3d", _point_model)
-    assert get_model("point-test") is _point_model
+
+
+def test_built_model_is_used_once_per_face_and_must_fit_the_layout():
+    lay = _layout()
+    point = PointModel(lay)
+    simulate_drive(lay, Scenario.homogeneous(50.0), [0.0, 1.0, 2.0], model=point)
+    assert point.calls == 3
+    with pytest.raises(ValueError, match="another layout"):
+        simulate_drive(_layout(body=True), Scenario.homogeneous(50.0), [0.0], model=point)
+    with pytest.raises(TypeError, match="response"):
+        simulate_drive(lay, Scenario.homogeneous(50.0), [0.0], model=object())
+
+
+def test_registry_models_by_name_match_the_closed_form():
+    """``analytic`` and ``axisym`` by name give the point-source numbers for every reading and
+    its reciprocal (no body, no cavity, full space): the closed form exactly, the
+    axisymmetric model within 1 % (Telford, Geldart & Sheriff 1990, sec. 8.2)."""
+    lay = _layout()
+    sc = Scenario.homogeneous(50.0)
+    ref = simulate_drive(lay, sc, [100.0], model=PointModel(lay))
+    ana = simulate_drive(lay, sc, [100.0], model="analytic")
+    np.testing.assert_allclose(ana.voltage_v, ref.voltage_v, rtol=1e-12)
+    axi = simulate_drive(lay, sc, [100.0])                     # the default: axisym
+    np.testing.assert_allclose(axi.voltage_v, ref.voltage_v, rtol=0.01)
 
 
 def test_write_readings_csv_and_parquet(tmp_path):
-    df = simulate_drive(_layout(), Scenario.homogeneous(50.0), [10.0], model="point-test")
+    lay = _layout()
+    df = simulate_drive(lay, Scenario.homogeneous(50.0), [10.0], model=PointModel(lay))
     p = write_readings(df, tmp_path / "readings.csv")
     back = pd.read_csv(p, keep_default_na=False)
     assert list(back.columns) == list(COLUMNS)
@@ -120,6 +136,6 @@ def test_3d_model_matches_closed_form():
     lay = _layout()
     sc = Scenario.homogeneous(50.0)
     df = simulate_drive(lay, sc, [100.0], model="3d", current_a=2.0)
-    ref = simulate_drive(lay, sc, [100.0], model="point-test", current_a=2.0)
+    ref = simulate_drive(lay, sc, [100.0], model=PointModel(lay), current_a=2.0)
     np.testing.assert_allclose(df.voltage_v, ref.voltage_v, rtol=0.02)
     assert np.all(df.voltage_v != 0)

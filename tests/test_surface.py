@@ -1,4 +1,4 @@
-"""Ratio correction of the ground surface (tbminv.surface).
+"""Ratio correction of the ground surface (tbminv.forward.ratio.surface_factors).
 
 The correction factor f = R(with surface) / R(without) of a homogeneous ground is checked
 against the image method (one image source mirrored in the insulating surface; Telford,
@@ -70,19 +70,19 @@ def test_corrected_contact_fit_under_a_surface():
     # model, 2 % noise, seed 19 (tests/data/make_drive_fixtures.py); faces 6..27 m every 3 m
     from tbminv.inversion.drive import DriveInverter
     from tbminv.inversion.settings import InversionSettings
-    from tbminv.readings.advance import advance_data
-    from tbminv.readings.qc import QCSettings, run_qc
-    from tbminv.readings.reader import read_readings
+    from tbminv.readings.advance import prepare_advances
+    from tbminv.readings.qc import QCSettings
 
     lay = load_layout(DATA / "fixture_layout_cover12.toml")
-    readings = read_readings(DATA / "drive_cover12_contact01_seed19.csv", lay)
-    data = advance_data(run_qc(readings, QCSettings(error_model_group="log")).table, lay)
+    data = prepare_advances(DATA / "drive_cover12_contact01_seed19.csv", lay,
+                            QCSettings(error_model_group="log")).advances
     inv = DriveInverter(lay, InversionSettings(forward_settings="fast"))
     inv.reference_resistivity(data[0])
     use = [inv.surface_corrected(d) for d in data]
     ratio = np.array([u.r_ohm / d.r_ohm for u, d in zip(use, data)])
     assert np.nanmax(np.abs(ratio - 1.0)) > 0.01       # the surface is seen and removed
-    rows = [(d.face_chainage_m, c) for d, c in zip(data, inv._contacts(use))
+    fits, _failed = inv._contacts(use)
+    rows = [(d.face_chainage_m, c) for d, c in zip(data, fits)
             if 30.0 - d.face_chainage_m <= 2 * D + 1e-9]
     assert len(rows) >= 4
     for f, c in rows:   # from 2 D ahead on: found, on the right side, within 0.5 D

@@ -7,7 +7,9 @@ textbook solutions the numerical models are tested against:
 * point source under an insulating ground surface (half space), by one image source;
 * point source near a plane contact, by the image method with reflection coefficient
   ``k = (rho2 - rho1) / (rho2 + rho1)`` (Telford, Geldart & Sheriff 1990, Applied Geophysics,
-  2nd ed., sec. 8.3).
+  2nd ed., sec. 8.3);
+* the full-space geometric factor of point electrodes, ``k = 4 pi / (1/AM - 1/AN - 1/BM +
+  1/BN)`` (numeric factors of the models with the machine in are in :mod:`tbminv.forward.ratio`).
 
 They know nothing of the machine or the tunnel: use them with ``model_body = false`` and
 ``model_cavity = false``.
@@ -15,11 +17,13 @@ They know nothing of the machine or the tunnel: use them with ``model_body = fal
 
 from __future__ import annotations
 
+import math
 from collections.abc import Mapping, Sequence
 from typing import Any
 
 import numpy as np
 
+from tbminv.forward.quadrupoles import Quadrupoles, as_measurements, quadrupole_terms
 from tbminv.ground import Scenario
 from tbminv.layout import Layout, Measurement
 
@@ -91,31 +95,58 @@ def transfer_resistances(potential_per_amp, positions: Mapping[str, np.ndarray |
     potential_per_amp : callable (src (3,), rec (3,)) -> float
         Potential at ``rec`` of a unit source at ``src``, V/A.
     positions : mapping label -> position (3,) or None
-        None marks an electrode at infinity (its terms vanish).
+        None (or a label missing here) marks an electrode at infinity (its terms vanish).
     measurements : sequence of Measurement
     """
+    used = {lab for q in measurements for lab in q.labels() if lab is not None}
+    infinity = {lab for lab in used if positions.get(lab) is None}
     out = np.empty(len(measurements))
-    for i, q in enumerate(measurements):
+    for i, terms in enumerate(quadrupole_terms(measurements, infinity)):
         total = 0.0
-        for cur, sign_c in ((q.a, 1.0), (q.b, -1.0)):
-            pc = positions.get(cur) if cur is not None else None
-            if pc is None:
-                continue
-            for pot, sign_p in ((q.m, 1.0), (q.n, -1.0)):
-                pp = positions.get(pot) if pot is not None else None
-                if pp is None:
-                    continue
-                total += sign_c * sign_p * float(potential_per_amp(pc, pp))
+        for sign, src, rec in terms:
+            total += sign * float(potential_per_amp(positions[src], positions[rec]))
         out[i] = total
     return out
 
 
+def full_space_geometric_factor(pos_a: np.ndarray, pos_b: np.ndarray, pos_m: np.ndarray,
+                                pos_n: np.ndarray) -> np.ndarray:
+    """Geometric factor of point electrodes in a full space, m.
+
+    ``k = 4 pi / (1/AM - 1/AN - 1/BM + 1/BN)``; a row of NaN in ``pos_b`` or ``pos_n`` is a
+    pole (its terms are left out). Then ``rho_a = k U / I``.
+
+    Parameters
+    ----------
+    pos_a, pos_b, pos_m, pos_n : ndarray, shape (n, 3)
+        Electrode positions, m (NaN rows: pole at infinity).
+
+    Returns
+    -------
+    ndarray
+        k, m (NaN where A or M has no position; inf where the four terms cancel).
+    """
+    def inv(p: np.ndarray, q: np.ndarray) -> np.ndarray:
+        d = np.linalg.norm(np.asarray(p, float) - np.asarray(q, float), axis=-1)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            return np.where(np.isnan(d), 0.0, 1.0 / d)
+
+    pa, pm = np.asarray(pos_a, float), np.asarray(pos_m, float)
+    g = inv(pa, pm) - inv(pa, pos_n) - inv(pos_b, pm) + inv(pos_b, pos_n)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        k = 4.0 * math.pi / g
+    k[np.isnan(pa).any(axis=-1) | np.isnan(pm).any(axis=-1)] = np.nan
+    return k
+
+
 def layout_response(layout: Layout, scenario: Scenario, face_chainage_m: float,
-                    cutterhead_deg: float = 0.0) -> np.ndarray:
-    """Closed-form transfer resistances of a layout's protocol, ohm (no machine, no tunnel).
+                    cutterhead_deg: float = 0.0, measurements: Quadrupoles | None = None
+                    ) -> np.ndarray:
+    """Closed-form transfer resistances of quadrupoles, ohm (no machine, no tunnel).
 
     Supports a homogeneous ground, or one contact square to the axis, in a full space or under a
-    ground surface at the layout's cover (half space, homogeneous only).
+    ground surface at the layout's cover (half space, homogeneous only). ``measurements``:
+    Measurement objects or (a, b, m, n) labels; None for the layout's protocol.
 
     Raises
     ------
@@ -125,8 +156,9 @@ def layout_response(layout: Layout, scenario: Scenario, face_chainage_m: float,
     if layout.machine.model_body or layout.tunnel.model_cavity:
         raise ValueError("closed forms know no machine or tunnel: set model_body = false and "
                          "model_cavity = false in the layout")
+    quads = as_measurements(layout, measurements)
     if any(e.kind == "machine" for e in layout.electrodes):
-        used = {lab for q in layout.measurements for lab in q.labels()}
+        used = {lab for q in quads for lab in q.labels()}
         if any(layout.electrode(lab).kind == "machine" for lab in used if lab):
             raise ValueError("closed forms cannot model current into the steel body")
     if scenario.spheres or scenario.ellipsoids or scenario.water_zones or len(
@@ -150,20 +182,21 @@ def layout_response(layout: Layout, scenario: Scenario, face_chainage_m: float,
     else:
         def pot(s, r):  # noqa: ANN001, ANN202
             return full_space_potential(rho1, s, r)
-    return transfer_resistances(pot, pos, layout.measurements)
+    return transfer_resistances(pot, pos, quads)
 
 
 class AnalyticModel:
-    """Closed-form model (see :func:`tbminv.analytic.layout_response`)."""
+    """Forward model ``analytic`` of the registry (see :func:`layout_response`)."""
 
     def __init__(self, layout: Layout, **_: Any) -> None:
         self.layout = layout
 
-    def response(self, scenario: Scenario, face_chainage_m: float,
-                 cutterhead_deg: float = 0.0) -> np.ndarray:
-        """Transfer resistances, ohm."""
-        return layout_response(self.layout, scenario, face_chainage_m, cutterhead_deg)
+    def response(self, scenario: Scenario, face_chainage_m: float, cutterhead_deg: float = 0.0,
+                 measurements: Quadrupoles | None = None) -> np.ndarray:
+        """Transfer resistances of ``measurements`` (default the protocol), ohm."""
+        return layout_response(self.layout, scenario, face_chainage_m, cutterhead_deg,
+                               measurements)
 
 
 __all__ = ["AnalyticModel", "full_space_potential", "half_space_potential", "contact_potential",
-           "transfer_resistances", "layout_response"]
+           "transfer_resistances", "full_space_geometric_factor", "layout_response"]

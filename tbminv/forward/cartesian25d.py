@@ -6,7 +6,8 @@ and the tunnel a resistive slab. That is a known, large bias (potentials near th
 orders of magnitude off 3D); the ratio correction of Fox et al. (1980, Geophysics 45(1):75-93)
 multiplies each reading by ``R_3D(homogeneous) / R_2.5D(homogeneous)`` computed with the true 3D
 geometry, which removes the homogeneous part of the bias but not its effect on the sensitivity to
-the ground ahead. Use it to compare methods, not for decisions.
+the ground ahead. Use it to compare methods, not for decisions. The ratio is computed and cached by
+:func:`tbminv.forward.ratio.cartesian_ratio`.
 
 Electrodes off the plane are projected on it at ``z = r cos(angle)``; a projection that falls inside
 the steel slab is moved to the nearer slab face (crown or invert side) plus ``electrode_offset_m``.
@@ -21,12 +22,15 @@ from __future__ import annotations
 
 import logging
 import math
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from typing import Any
 
 import numpy as np
 
 from tbminv.forward.fem3d.model import Model3D
+from tbminv.forward.quadrupoles import Quadrupoles, as_measurements
+from tbminv.forward.ratio import cartesian_ratio
+from tbminv.gimli import configure_operator, ert, ert_data_container, pg
 from tbminv.ground import Scenario
 from tbminv.layout import Layout
 
@@ -75,9 +79,10 @@ class Cartesian25DModel:
     Parameters
     ----------
     layout : Layout
-    settings : SectionSettings, optional
+    settings : Cartesian25DSettings, optional
     reference : ForwardModel, optional
-        The 3D model for the ratio correction (built on first use if not given).
+        The 3D model for the ratio correction (default: ``Model3D(layout)``, built on first
+        use).
     """
 
     def __init__(self, layout: Layout, settings: Cartesian25DSettings | None = None,
@@ -86,7 +91,22 @@ class Cartesian25DModel:
         self.settings = settings or Cartesian25DSettings()
         self._reference = reference
         self._meshes: dict[tuple, tuple[Any, np.ndarray, dict[str, int]]] = {}
-        self._ratio: dict[tuple, np.ndarray] = {}
+
+    @property
+    def reference(self) -> Any:
+        """The 3D model of the ratio correction (built on first use)."""
+        if self._reference is None:
+            self._reference = Model3D(self.layout)
+        return self._reference
+
+    def uncorrected(self) -> Cartesian25DModel:
+        """The same section without the ratio correction (shares the meshes; a registry model)."""
+        if not self.settings.ratio_correction:
+            return self
+        bare = Cartesian25DModel(self.layout, replace(self.settings, ratio_correction=False),
+                                 self._reference)
+        bare._meshes = self._meshes
+        return bare
 
     # ------------------------------------------------------------------ geometry
     def axis_y_m(self) -> float:
@@ -103,7 +123,7 @@ class Cartesian25DModel:
         L = self.layout.machine.shield_length_m
         off = self.settings.electrode_offset_m
         out: dict[str, np.ndarray | None] = {}
-        pos = self.layout.positions_machine(cutterhead_deg, face_chainage_m)
+        pos = self.layout.positions_machine(face_chainage_m, cutterhead_deg)
         for e in self.layout.electrodes:
             p = pos[e.label]
             if e.kind == "machine":
@@ -122,8 +142,6 @@ class Cartesian25DModel:
         return out
 
     def _mesh(self, face_chainage_m: float, cutterhead_deg: float):  # noqa: ANN202
-        from tbminv.gimli import pg
-
         proj = self.projected_positions(face_chainage_m, cutterhead_deg)
         key = tuple(sorted((k, tuple(np.round(v, 6))) for k, v in proj.items() if v is not None))
         if key in self._meshes:
@@ -186,19 +204,14 @@ class Cartesian25DModel:
         return rho
 
     def response_uncorrected(self, scenario: Scenario, face_chainage_m: float,
-                             cutterhead_deg: float = 0.0) -> np.ndarray:
+                             cutterhead_deg: float = 0.0,
+                             measurements: Quadrupoles | None = None) -> np.ndarray:
         """2.5D transfer resistances without the ratio correction, ohm."""
-        from tbminv.gimli import configure_operator, ert, pg
-
         mesh, sensors, index = self._mesh(face_chainage_m, cutterhead_deg)
-        data = pg.DataContainerERT()
-        for xy in sensors:
-            data.createSensor([xy[0], xy[1]])
-        quads = self.layout.measurements
-        for i, q in enumerate(quads):
-            abmn = [index.get(lab, -1) if lab is not None else -1 for lab in q.labels()]
-            data.createFourPointData(i, *abmn)
-        data.set("k", np.ones(len(quads)))
+        quads = as_measurements(self.layout, measurements)
+        data = ert_data_container(
+            sensors, [[index.get(lab, -1) if lab is not None else -1 for lab in q.labels()]
+                      for q in quads])
         fop = ert.ERTModelling(sr=False, verbose=False)
         configure_operator(fop)
         fop.setData(data)
@@ -210,26 +223,21 @@ class Cartesian25DModel:
             raise RuntimeError("pyGIMLi 2.5D response is empty or all zero")
         return out
 
-    def ratio(self, face_chainage_m: float, cutterhead_deg: float = 0.0) -> np.ndarray:
-        """Ratio correction R_3D / R_2.5D of homogeneous ground for this face (1)."""
-        key = (round(face_chainage_m, 6), round(cutterhead_deg, 6))
-        if key not in self._ratio:
-            if self._reference is None:
-                self._reference = Model3D(self.layout)
-            hom = Scenario.homogeneous(self.settings.rho_ref_ohmm)
-            r3 = np.asarray(self._reference.response(hom, face_chainage_m, cutterhead_deg))
-            r2 = self.response_uncorrected(hom, face_chainage_m, cutterhead_deg)
-            with np.errstate(divide="ignore", invalid="ignore"):
-                self._ratio[key] = r3 / r2
-        return self._ratio[key]
+    def ratio(self, face_chainage_m: float, cutterhead_deg: float = 0.0,
+              measurements: Quadrupoles | None = None) -> np.ndarray:
+        """Ratio correction R_3D / R_2.5D of homogeneous ground for this face (1, cached)."""
+        return cartesian_ratio(self, face_chainage_m, cutterhead_deg, measurements)
 
-    def response(self, scenario: Scenario, face_chainage_m: float,
-                 cutterhead_deg: float = 0.0) -> np.ndarray:
-        """Transfer resistances of ``layout.measurements`` (ratio-corrected if set), ohm."""
-        r = self.response_uncorrected(scenario, face_chainage_m, cutterhead_deg)
+    def response(self, scenario: Scenario, face_chainage_m: float, cutterhead_deg: float = 0.0,
+                 measurements: Quadrupoles | None = None) -> np.ndarray:
+        """Transfer resistances of ``measurements`` (default the protocol), ratio-corrected, ohm.
+
+        The ratio correction applies when ``settings.ratio_correction`` is set.
+        """
+        r = self.response_uncorrected(scenario, face_chainage_m, cutterhead_deg, measurements)
         if self.settings.ratio_correction:
-            r = r * self.ratio(face_chainage_m, cutterhead_deg)
+            r = r * self.ratio(face_chainage_m, cutterhead_deg, measurements)
         return r
 
 
-__all__ = ["Cartesian25DModel", "Cartesian25DSettings"]
+__all__ = ["Cartesian25DModel", "Cartesian25DSettings", "GROUND", "MACHINE", "TUNNEL"]

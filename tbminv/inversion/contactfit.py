@@ -38,6 +38,7 @@ import numpy as np
 from scipy.interpolate import RegularGridInterpolator
 from scipy.stats import chi2 as chi2_dist
 
+from tbminv.cache import atomic_path, cache_dir, cache_key
 from tbminv.ground import Contact, Scenario
 from tbminv.layout import Layout
 
@@ -69,6 +70,15 @@ class ContactFitSettings:
         through the same ground until it reaches the contact). With the steel in, every pole
         reading responds alike to a contact ahead, so one advance alone cannot tell a contact
         from a change of the ground around the machine; a shared value breaks that trade-off.
+    null_fraction : float
+        A reading whose homogeneous response ``|r0|`` is at or below this fraction of the
+        median ``|r0|`` of the table is null-coupled (e.g. a cutterhead dipole symmetric about
+        its potential electrodes in axisymmetric ground: 0 up to round-off, about 1e-16 of the
+        median): its relative response ``r / r0`` is undefined or round-off, so it is left out
+        of the contact fit (with a logged reason; it stays in the image inversion). Our default
+        1e-6 takes only numerical zeros: near-null readings above it respond strongly to a
+        contact ahead and stay in (the demo drive has 8 of 120 at 6e-5 to 8e-4 of the median;
+        leaving them out at 1e-3 moved its fitted distances by up to 3 m).
     """
 
     contrasts: tuple[float, ...] = (0.05, 0.1, 0.25, 0.5, 1.0, 2.0, 4.0, 10.0, 20.0)
@@ -80,6 +90,7 @@ class ContactFitSettings:
     fine_distances: int = 240
     fine_contrasts: int = 81
     shared_resistivity: bool = True
+    null_fraction: float = 1e-6
 
 
 @dataclass
@@ -107,8 +118,6 @@ class ResponseTable:
 
     def save(self, path: Path) -> Path:
         """Write to ``.npz`` (atomic; no pickled objects)."""
-        from tbminv.cache import atomic_path
-
         with atomic_path(path) as tmp:
             with open(tmp, "wb") as fh:
                 np.savez(fh, contrasts=self.contrasts, distances_m=self.distances_m,
@@ -116,6 +125,37 @@ class ResponseTable:
                          meta=np.array(json.dumps({"rho_ref_ohmm": self.rho_ref_ohmm,
                                                    "model": self.model})))
         return path
+
+    def usable(self, null_fraction: float) -> tuple[np.ndarray, dict[int, str]]:
+        """Readings whose relative response ``r / r0`` is defined, and why the others are not.
+
+        Parameters
+        ----------
+        null_fraction : float
+            A reading with ``|r0|`` below this fraction of the median ``|r0|`` (over the
+            finite, non-zero ones) is null-coupled.
+
+        Returns
+        -------
+        (ndarray of bool (nq,), dict)
+            The mask, and a reason per left-out reading index.
+        """
+        r0 = np.asarray(self.r0_ohm, float)
+        mag = np.abs(r0)
+        finite = np.isfinite(r0) & np.all(np.isfinite(self.r_ohm), axis=(0, 1))
+        nonzero = finite & (mag > 0)
+        ref = float(np.median(mag[nonzero])) if nonzero.any() else 0.0
+        floor = null_fraction * ref
+        reasons: dict[int, str] = {}
+        for i in range(r0.size):
+            if not finite[i]:
+                reasons[i] = "response not finite in the contact table"
+            elif not mag[i] > floor:
+                reasons[i] = (f"null-coupled: homogeneous response |r0| = {mag[i]:.3g} ohm is at "
+                              f"or below {null_fraction:g} x the median |r0| ({ref:.3g} ohm)")
+        use = np.ones(r0.size, bool)
+        use[list(reasons)] = False
+        return use, reasons
 
     @classmethod
     def load(cls, path: Path) -> ResponseTable:
@@ -137,14 +177,12 @@ def build_response_table(layout: Layout, model: Any, *, rho_ref_ohmm: float,
     ----------
     layout : Layout
     model : ForwardModel
-        Built for ``layout`` (see :mod:`tbminv.models`).
+        Built for ``layout`` (see :mod:`tbminv.forward.registry`).
     rho_ref_ohmm : float
         Resistivity around the machine for the table, ohm-m.
     face_chainage_m : float
         Face chainage used for the table (matters only for electrodes fixed in the ground).
     """
-    from tbminv.cache import cache_dir, cache_key
-
     contrasts = np.array(sorted(set(settings.contrasts) | {1.0}), float)
     d = np.array(settings.distances_in_diameters, float) * layout.machine.diameter_m
     key = cache_key({"layout": layout.to_dict(), "model": model_name or type(model).__name__,
@@ -153,7 +191,7 @@ def build_response_table(layout: Layout, model: Any, *, rho_ref_ohmm: float,
     path = cache_dir("contact-tables") / f"{key}.npz"
     if cache and path.exists():
         return ResponseTable.load(path)
-    from tqdm.auto import tqdm
+    from tqdm.auto import tqdm  # late: the progress-bar package is needed only for a new table
 
     r0 = np.asarray(model.response(Scenario.homogeneous(rho_ref_ohmm), face_chainage_m), float)
     r = np.empty((contrasts.size, d.size, r0.size))
@@ -213,14 +251,46 @@ class ContactEstimate:
 
 
 class ContactFitter:
-    """Fit contacts to per-advance data with a response table."""
+    """Fit contacts to per-advance data with a response table.
 
-    def __init__(self, table: ResponseTable, settings: ContactFitSettings = ContactFitSettings()):
+    Parameters
+    ----------
+    table : ResponseTable
+    settings : ContactFitSettings
+    labels : sequence of str, optional
+        A name per reading of the table (for the log of left-out readings).
+
+    Attributes
+    ----------
+    usable : ndarray of bool (nq,)
+        Readings of the table with a defined relative response; the others (null-coupled or
+        not finite, see :meth:`ResponseTable.usable`) are never used by the fit.
+    left_out : dict
+        Reading index -> why it was left out.
+
+    Raises
+    ------
+    ValueError
+        No reading of the table has a usable homogeneous response.
+    """
+
+    def __init__(self, table: ResponseTable, settings: ContactFitSettings = ContactFitSettings(),
+                 labels: Sequence[str] | None = None):
         self.table = table
         self.settings = settings
         c, d = table.contrasts, table.distances_m
-        with np.errstate(divide="ignore", invalid="ignore"):
-            rel = table.r_ohm / table.r0_ohm[None, None, :]
+        self.usable, self.left_out = table.usable(settings.null_fraction)
+        use = self.usable
+        if not use.any():
+            raise ValueError(f"contact table: none of its {use.size} readings has a usable "
+                             "homogeneous response (all null-coupled or not finite)")
+        if self.left_out:
+            names = list(labels) if labels is not None else [f"#{i}" for i in range(use.size)]
+            _LOG.warning("contact fit: %d of %d readings left out of the relative-response "
+                         "table (they stay in the image inversion): %s", len(self.left_out),
+                         use.size, "; ".join(f"{names[i]}: {why}"
+                                             for i, why in self.left_out.items()))
+        rel = table.r_ohm[..., use] / table.r0_ohm[None, None, use]
         # interpolate the relative response (smooth) in (log c, log d)
         self._interp = RegularGridInterpolator((np.log(c), np.log(d)), rel, method="cubic"
                                                if min(c.size, d.size) >= 4 else "linear")
@@ -230,8 +300,23 @@ class ContactFitter:
         self.fine_d = np.exp(np.linspace(np.log(d[0]), np.log(d[-1]), settings.fine_distances))
         lc, ld = np.meshgrid(np.log(self.fine_c), np.log(self.fine_d), indexing="ij")
         pts = np.stack([lc.ravel(), ld.ravel()], axis=-1)
-        self.fine_rel = self._interp(pts).reshape(lc.shape + (rel.shape[-1],))
+        self.fine_rel = np.full(lc.shape + (use.size,), np.nan)
+        self.fine_rel[..., use] = self._interp(pts).reshape(lc.shape + (int(use.sum()),))
         self.fine_rel[np.isclose(self.fine_c, 1.0)] = 1.0
+
+    def usable_readings(self, r_obs_ohm: np.ndarray, rel_error: np.ndarray,
+                        use: np.ndarray | None = None) -> np.ndarray:
+        """Readings of one advance the fit uses, bool (nq,).
+
+        Finite, with a positive error, of the sign of the table's homogeneous reading, not
+        left out of the table (null-coupled), and in ``use`` if given.
+        """
+        ok = np.isfinite(r_obs_ohm) & np.isfinite(rel_error) & (rel_error > 0)
+        ok &= np.sign(r_obs_ohm) == np.sign(self.table.r0_ohm)
+        ok &= self.usable
+        if use is not None:
+            ok &= use
+        return ok
 
     def likelihood(self, r_obs_ohm: np.ndarray, rel_error: np.ndarray,
                    use: np.ndarray | None = None) -> Likelihood:
@@ -244,14 +329,16 @@ class ContactFitter:
         rel_error : ndarray (nq,)
             Relative standard errors (fraction).
         use : ndarray of bool, optional
-            Readings to use (default: finite, same sign as the table's homogeneous reading).
+            Readings to use (default: finite, same sign as the table's homogeneous reading,
+            not left out of the table).
+
+        Raises
+        ------
+        ValueError
+            Fewer than 3 usable readings.
         """
         r0 = self.table.r0_ohm
-        ok = np.isfinite(r_obs_ohm) & np.isfinite(rel_error) & (rel_error > 0)
-        ok &= np.sign(r_obs_ohm) == np.sign(r0)
-        ok &= np.abs(r0) > 0
-        if use is not None:
-            ok &= use
+        ok = self.usable_readings(r_obs_ohm, rel_error, use)
         if ok.sum() < 3:
             raise ValueError(f"contact fit needs at least 3 usable readings, got {int(ok.sum())}")
         # data: log of apparent resistivity against the table's homogeneous response
@@ -366,7 +453,8 @@ class ContactFitter:
                                n_data, len(likelihoods), note)
 
     def fit_drive(self, r_obs: np.ndarray, rel_error: np.ndarray, faces_m: Sequence[float],
-                  use: np.ndarray | None = None) -> list[ContactEstimate]:
+                  use: np.ndarray | None = None, *, skip_unusable: bool = False
+                  ) -> list[ContactEstimate | None]:
         """Running joint fit along a drive.
 
         Parameters
@@ -376,13 +464,29 @@ class ContactFitter:
         rel_error : ndarray (n_advances, nq)
         faces_m : sequence of float (n_advances,)
         use : ndarray of bool (n_advances, nq), optional
+        skip_unusable : bool
+            An advance with fewer than 3 usable readings gets ``None`` and is left out of the
+            windows of the others (default: :class:`ValueError`).
         """
-        liks = [self.likelihood(r_obs[k], rel_error[k], None if use is None else use[k])
-                for k in range(len(faces_m))]
-        out = []
+        liks: list[Likelihood | None] = []
         for k in range(len(faces_m)):
+            try:
+                liks.append(self.likelihood(r_obs[k], rel_error[k],
+                                            None if use is None else use[k]))
+            except ValueError as exc:
+                if not skip_unusable:
+                    raise
+                _LOG.warning("contact fit: advance %d of the drive left out: %s", k, exc)
+                liks.append(None)
+        out: list[ContactEstimate | None] = []
+        for k in range(len(faces_m)):
+            if liks[k] is None:
+                out.append(None)
+                continue
             k0 = max(0, k - self.settings.window + 1)
-            out.append(self.estimate(liks[k0:k + 1], faces_m[k0:k + 1]))
+            win = [(lik, f) for lik, f in zip(liks[k0:k + 1], faces_m[k0:k + 1])
+                   if lik is not None]
+            out.append(self.estimate([w[0] for w in win], [w[1] for w in win]))
         return out
 
 

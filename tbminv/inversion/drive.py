@@ -1,11 +1,12 @@
 """Inversion along the drive: one image per advance with the machine fixed, warm-started.
 
-For every advance the checked readings (:mod:`tbminv.qc`) become apparent resistivities with
-numeric geometric factors (``k = rho_ref / R_hom`` from a homogeneous run of the same forward
+For every advance the checked readings (:mod:`tbminv.readings.qc`) become apparent resistivities
+with numeric geometric factors (``k = rho_ref / R_hom`` from a homogeneous run of the same forward
 model with the machine and tunnel in, so that homogeneous ground returns its resistivity; the
 ratio method of Fox et al. 1980, Geophysics 45(1):75-93) and are inverted with pyGIMLi's
 :class:`pygimli.Inversion` (log data, log-bounded model, smoothness regularisation on the
-parameter mesh) through the axisymmetric forward operator (:mod:`tbminv.axisym`).
+parameter mesh) through the axisymmetric forward operator (:mod:`tbminv.inversion.operator`
+on :mod:`tbminv.forward.axisym`).
 
 * The parameter mesh is a tensor grid of the ground in the machine frame, ``ahead`` x ``radius``,
   coarser than the forward mesh, built once per layout; its lines follow the machine and tunnel
@@ -26,6 +27,13 @@ parameter mesh) through the axisymmetric forward operator (:mod:`tbminv.axisym`)
 * Along the drive each advance starts from the previous model shifted by the advance (the ground
   moves towards the machine), interpolated in log resistivity; ``cold=True`` starts every advance
   from the homogeneous median apparent resistivity.
+* Robust drive run (:meth:`DriveInverter.run`): everything that can fail for the whole drive
+  (reference resistivity, surface factors of every advance, the contact table and fitter and
+  their use on the data) is built and checked before the first image; with a
+  :class:`tbminv.inversion.journal.Journal` each image is on disk as soon as it is done and a
+  rerun skips the advances journaled for the same inputs; a failing post-processing step
+  (contact fit, DOI, resampling) is logged as a warning and recorded per advance
+  (``AdvanceResult.postprocess_flag``), the images are kept.
 """
 
 from __future__ import annotations
@@ -33,14 +41,25 @@ from __future__ import annotations
 import dataclasses
 import logging
 import math
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
 from typing import Any
 
 import numpy as np
 
+from tbminv.cache import cache_key
+from tbminv.forward.ratio import needs_correction, surface_factors
+from tbminv.forward.registry import make_model
+from tbminv.inversion.contactfit import ContactFitter, build_response_table
 from tbminv.inversion.grid import build_parameter_grid
 from tbminv.inversion.image import ImageResult, invert_image, shift_model
+from tbminv.inversion.journal import Journal
 from tbminv.inversion.operator import DriveOperator
+from tbminv.inversion.outcome import (
+    POSTPROCESS_CONTACT_FIT_FAILED,
+    POSTPROCESS_RESAMPLING_FAILED,
+    AdvanceResult,
+    ContactFit,
+)
 from tbminv.inversion.settings import SCHEDULER_NEEDS_COLD, InversionError, InversionSettings
 from tbminv.layout import Layout
 from tbminv.readings.advance import AdvanceData
@@ -62,15 +81,13 @@ class DriveInverter:
 
     def __init__(self, layout: Layout, settings: InversionSettings | None = None,
                  model: Any | None = None) -> None:
-        from tbminv.forward.registry import make_model
-
         self.layout = layout
         self.settings = settings or InversionSettings()
         if self.settings.model != "axisym" and model is None:
             raise InversionError(f"image inversion needs the axisym model, not "
                                  f"{self.settings.model!r}")
         if model is None:
-            from tbminv.studies.reach import model_options_for
+            from tbminv.forward.registry import model_options_for
 
             model = make_model("axisym", layout,
                                **model_options_for("axisym", self.settings.forward_settings))
@@ -79,10 +96,10 @@ class DriveInverter:
         self._ops: dict[tuple, DriveOperator] = {}
         self._k: dict[tuple, np.ndarray] = {}
         self.rho_ref_ohmm: float | None = None
-        self._fitter = None
+        self._fitter: ContactFitter | None = None
 
     def _op_key(self, face: float, ch: float) -> tuple:
-        cyl = self.layout.positions_cylindrical(ch, face)
+        cyl = self.layout.positions_cylindrical(face, ch)
         return tuple(sorted((k, round(v[0], 6), round(v[1], 6)) for k, v in cyl.items()
                             if v is not None))
 
@@ -97,26 +114,28 @@ class DriveInverter:
 
     def geometric_factors(self, face: float, ch: float, rho_ref: float) -> np.ndarray:
         """Numeric geometric factors k = rho_ref / R_hom per protocol quadrupole, m."""
+        from tbminv.forward.ratio import geometric_factors_from_response
+
         key = (*self._op_key(face, ch), round(ch, 6), rho_ref)
         if key not in self._k:
             op = self.operator(face, ch)
             r = op.response(np.full(self.grid.n_param, rho_ref), ch)
-            with np.errstate(divide="ignore"):
-                self._k[key] = np.where(np.abs(r) > 0, rho_ref / r, np.nan)
+            self._k[key] = geometric_factors_from_response(r, rho_ref)
         return self._k[key]
 
-    def contact_fitter(self, rho_ref: float) -> Any:
-        """Contact fitter with a response table of this layout (built once, cached on disk)."""
-        from tbminv.inversion.contactfit import ContactFitter, build_response_table
+    def contact_fitter(self, rho_ref: float) -> ContactFitter:
+        """Contact fitter with a response table of this layout (built once, cached on disk).
 
+        Readings of the machine-only layout that are null-coupled in homogeneous ground are
+        left out of the fit with a logged reason (:meth:`ResponseTable.usable`).
+        """
         if self._fitter is None:
-            from tbminv.forward.registry import make_model
-
             sub = self._machine_only_layout()
             model = make_model("axisym", sub, settings=getattr(self.model, "settings", None))
             table = build_response_table(sub, model, rho_ref_ohmm=rho_ref,
                                          settings=self.settings.contact, model_name="axisym")
-            self._fitter = ContactFitter(table, self.settings.contact)
+            labels = ["/".join(x or "-" for x in q.labels()) for q in sub.measurements]
+            self._fitter = ContactFitter(table, self.settings.contact, labels=labels)
         return self._fitter
 
     def _machine_only_layout(self) -> Layout:
@@ -147,10 +166,8 @@ class DriveInverter:
         """The advance's readings as the same ground would give them without the surface.
 
         Unchanged for a deep tunnel (infinite cover) or with ``surface_correction`` off; else
-        divided by :func:`tbminv.surface.surface_factors` at the reference resistivity.
+        divided by :func:`tbminv.forward.ratio.surface_factors` at the reference resistivity.
         """
-        from tbminv.forward.ratio import needs_correction, surface_factors
-
         if not (self.settings.surface_correction and needs_correction(self.layout)):
             return adv
         f = surface_factors(self.layout, adv.face_chainage_m, adv.cutterhead_deg,
@@ -169,10 +186,67 @@ class DriveInverter:
                   img.stop_reason, img.time_s)
         return img
 
+    def prepare(self, data: Sequence[AdvanceData], progress: bool = False
+                ) -> list[AdvanceData]:
+        """Build and check everything the drive needs before its first image.
+
+        Sets the reference resistivity (from the first advance), applies the surface
+        correction to every advance (3D runs, cached) and, with ``contact_fit``, builds the
+        contact table and fitter and checks that some advance has readings it can use.
+
+        Parameters
+        ----------
+        data : sequence of AdvanceData
+            Advances in drive order.
+        progress : bool
+            Show a progress bar of the surface correction (two 3D runs per advance).
+
+        Returns
+        -------
+        list of AdvanceData
+            The advances as the images and the contact fit see them (surface-corrected).
+
+        Raises
+        ------
+        InversionError
+            Something that would fail the whole drive; the message says what to change.
+        """
+        from tqdm.auto import tqdm  # late: the progress-bar package is needed only here
+
+        data = list(data)
+        self.reference_resistivity(data[0])
+        if self.settings.surface_correction and needs_correction(self.layout):
+            try:
+                data = [self.surface_corrected(adv) for adv in
+                        tqdm(data, disable=not progress, desc="surface correction (3D)",
+                             unit="advance")]
+            except (OSError, RuntimeError, ValueError) as exc:
+                raise InversionError(f"surface correction (3D homogeneous factors) failed: "
+                                     f"{exc}; set [invert] surface_correction = false to invert "
+                                     "without it") from exc
+        if self.settings.contact_fit:
+            try:
+                fitter = self.contact_fitter(self.rho_ref_ohmm or 100.0)
+            except (OSError, RuntimeError, ValueError) as exc:
+                raise InversionError(f"contact fit cannot be set up: {exc}; set [invert] "
+                                     "contact_fit = false to invert without it") from exc
+            r, e, _ = self._contact_data(data)
+            usable = [int(fitter.usable_readings(r[k], e[k]).sum()) for k in range(len(data))]
+            if max(usable) < 3:
+                raise InversionError(
+                    "contact fit: no advance has 3 readings between electrodes on the machine "
+                    f"that it can use (at most {max(usable)}); set [invert] contact_fit = false "
+                    "to invert without it")
+            short = [d.advance for d, n in zip(data, usable) if n < 3]
+            if short:
+                _LOG.warning("contact fit: advances %s have fewer than 3 usable readings; they "
+                             "will be flagged contact_fit_failed", short)
+        return data
+
     def run(self, data: Sequence[AdvanceData], *, cold: bool = False,
             progress: bool = False, client: Any | None = None,
-            scheduler: str | None = None) -> list[Any]:
-        """Invert every advance; return :class:`tbminv.section.AdvanceResult` objects.
+            scheduler: str | None = None, journal: Journal | None = None) -> list[AdvanceResult]:
+        """Invert every advance; return :class:`tbminv.inversion.outcome.AdvanceResult` objects.
 
         Parameters
         ----------
@@ -186,6 +260,16 @@ class DriveInverter:
             Run the (cold, independent) image inversions on this client's workers.
         scheduler : str, optional
             Address of a dask scheduler to connect to instead of ``client``.
+        journal : Journal, optional
+            Write each advance's image there as soon as it is done, and take the advances it
+            already holds from it instead of inverting them again (the warm start continues
+            from the last journaled model).
+
+        Notes
+        -----
+        :meth:`prepare` runs first (everything that can fail for the whole drive). The contact
+        fit runs over all advances at the end; a failure there, in the DOI or in resampling
+        sets ``postprocess_flag`` on the advances concerned and is logged as a warning.
         """
         if not data:
             return []
@@ -196,39 +280,61 @@ class DriveInverter:
         distributed = client is not None or bool(scheduler)
         if distributed and not cold:
             raise InversionError(SCHEDULER_NEEDS_COLD)
-        from tqdm.auto import tqdm
+        data = self.prepare(data, progress)
+        done = journal.load() if journal is not None else {}
+        done = {a: img for a, img in done.items() if a in {d.advance for d in data}}
+        if done:
+            _LOG.warning("resuming from the journal %s: %d of %d advances already inverted",
+                         journal.folder, len(done), len(data))
 
-        from tbminv.forward.ratio import needs_correction
+        def keep(adv: AdvanceData, img: ImageResult) -> None:
+            if journal is not None:
+                journal.write(adv.advance, img)
 
-        self.reference_resistivity(data[0])
-        if self.settings.surface_correction and needs_correction(self.layout):
-            data = [self.surface_corrected(adv) for adv in
-                    tqdm(data, disable=not progress, desc="surface correction (3D)",
-                         unit="advance")]
         if distributed:
-            imgs = self._run_distributed(data, client, scheduler, progress)
+            todo = [adv for adv in data if adv.advance not in done]
+            imgs = self._run_distributed(todo, client, scheduler, progress, keep)
+            by_adv = {**done, **{adv.advance: img for adv, img in zip(todo, imgs)}}
+            images = [by_adv[adv.advance] for adv in data]
         else:
-            imgs = []
-            prev_model = prev_face = None
-            for adv in tqdm(data, disable=not progress, desc="advances", unit="advance"):
+            images = self._run_serial(data, cold, progress, done, keep)
+        contacts, failed = (self._contacts(data) if self.settings.contact_fit
+                            else ([None] * len(data), [False] * len(data)))
+        return [self._advance_result(adv, img, con, fail)
+                for adv, img, con, fail in zip(data, images, contacts, failed)]
+
+    def _run_serial(self, data: Sequence[AdvanceData], cold: bool, progress: bool,
+                    done: dict[int, ImageResult],
+                    keep: Callable[[AdvanceData, ImageResult], None]) -> list[ImageResult]:
+        """Advances in order, each warm-started from the previous one (journaled or new)."""
+        from tqdm.auto import tqdm  # late: the progress-bar package is needed only here
+
+        imgs = []
+        prev_model = prev_face = None
+        for adv in tqdm(data, disable=not progress, desc="advances", unit="advance"):
+            img = done.get(adv.advance)
+            if img is None:
                 start = ref = None
                 if not cold and prev_model is not None and (self.settings.warm_start
                                                             or self.settings.time_lapse):
                     start = shift_model(self.grid, prev_model, adv.face_chainage_m - prev_face)
                     ref = start if self.settings.time_lapse else None
                 img = self.invert_advance(adv, start, ref)
-                prev_model, prev_face = img.model_ohmm, adv.face_chainage_m
-                imgs.append(img)
-        contacts = self._contacts(data) if self.settings.contact_fit else [None] * len(data)
-        return [self._advance_result(adv, img, con)
-                for adv, img, con in zip(data, imgs, contacts)]
+                keep(adv, img)
+            prev_model, prev_face = img.model_ohmm, adv.face_chainage_m
+            imgs.append(img)
+        return imgs
 
     def _run_distributed(self, data: Sequence[AdvanceData], client: Any | None,
-                         scheduler: str | None, progress: bool) -> list[ImageResult]:
+                         scheduler: str | None, progress: bool,
+                         keep: Callable[[AdvanceData, ImageResult], None]) -> list[ImageResult]:
         """Cold image inversions on dask workers (one inverter per worker process)."""
+        # late: dask.distributed is an optional, heavy import needed only with --scheduler
         from dask.distributed import Client, as_completed
         from tqdm.auto import tqdm
 
+        if not data:
+            return []
         own = None
         if client is None:
             try:
@@ -242,43 +348,58 @@ class DriveInverter:
             out: list[Any] = [None] * len(data)
             for fut in tqdm(as_completed(futures), total=len(futures), disable=not progress,
                             desc="advances", unit="advance"):
-                out[index[fut.key]] = fut.result()
+                i = index[fut.key]
+                out[i] = fut.result()
+                keep(data[i], out[i])
             return out
         finally:
             if own is not None:
                 own.close()
 
-    def _contacts(self, data: Sequence[AdvanceData]) -> list[Any]:
-        from tbminv.inversion.outcome import ContactFit
-
-        fitter = self.contact_fitter(self.rho_ref_ohmm or 100.0)
+    def _contact_data(self, data: Sequence[AdvanceData]
+                      ) -> tuple[np.ndarray, np.ndarray, list[float]]:
+        """Readings of the machine-only layout per advance: r (ohm), rel. error, faces (m)."""
         full = {q: i for i, q in enumerate(self.layout.measurements)}
         sub = [full[q] for q in self._machine_only_layout().measurements]
-        r = np.array([d.r_ohm[sub] for d in data])
-        e = np.array([d.rel_error[sub] for d in data])
-        faces = [d.face_chainage_m for d in data]
-        out = []
+        r = np.array([d.r_ohm[sub] for d in data]).reshape(len(data), len(sub))
+        e = np.array([d.rel_error[sub] for d in data]).reshape(len(data), len(sub))
+        return r, e, [d.face_chainage_m for d in data]
+
+    def _contacts(self, data: Sequence[AdvanceData]) -> tuple[list[ContactFit | None],
+                                                               list[bool]]:
+        """Running joint contact fit; per advance the fit (or None) and whether it failed."""
         try:
-            est = fitter.fit_drive(r, e, faces)
-        except ValueError as exc:
-            _LOG.warning("contact fit skipped: %s", exc)
-            return [None] * len(data)
+            fitter = self.contact_fitter(self.rho_ref_ohmm or 100.0)
+            r, e, faces = self._contact_data(data)
+            est = fitter.fit_drive(r, e, faces, skip_unusable=True)
+        except Exception as exc:  # noqa: BLE001 - degrade: the images stand without it
+            _LOG.warning("contact fit failed for all %d advances (images kept): %s: %s",
+                         len(data), type(exc).__name__, exc)
+            return [None] * len(data), [True] * len(data)
         level = self.settings.contact.confidence
-        for es in est:
-            out.append(ContactFit.from_estimate(es, interval_level=level))
-        return out
+        out = [None if es is None else ContactFit.from_estimate(es, interval_level=level)
+               for es in est]
+        return out, [es is None for es in est]
 
-    def _advance_result(self, adv: AdvanceData, img: ImageResult, contact: Any) -> Any:
-        from tbminv.inversion.outcome import AdvanceResult
-
-        ahead, radius, rho, cov, doi = self.resample(img)
+    def _advance_result(self, adv: AdvanceData, img: ImageResult, contact: ContactFit | None,
+                        contact_failed: bool = False) -> AdvanceResult:
+        flag = img.postprocess_flag | (POSTPROCESS_CONTACT_FIT_FAILED if contact_failed else 0)
+        try:
+            ahead, radius, rho, cov, doi = self.resample(img)
+        except Exception as exc:  # noqa: BLE001 - degrade: keep the advance's record
+            _LOG.warning("advance %d: resampling to the output grid failed: %s: %s",
+                         adv.advance, type(exc).__name__, exc)
+            ahead, radius = self.output_grid()
+            rho = cov = np.full((ahead.size, radius.size), np.nan)
+            doi = None
+            flag |= POSTPROCESS_RESAMPLING_FAILED
         return AdvanceResult(
             advance=adv.advance, face_chainage_m=adv.face_chainage_m, ahead_m=ahead,
             radius_m=radius, resistivity_ohmm=rho, coverage=cov, doi_index=doi,
             chi2=img.chi2, rrms_percent=img.rrms_percent, iterations=img.iterations,
             lambda_=img.lam, stop_reason=img.stop_reason, converged=img.converged,
             time_s=img.time_s, chi2_history=img.chi2_history, n_data=adv.n_readings,
-            n_used=img.n_used, contact=contact, time=adv.time)
+            n_used=img.n_used, contact=contact, time=adv.time, postprocess_flag=flag)
 
     def output_grid(self) -> tuple[np.ndarray, np.ndarray]:
         """Cell centres (ahead, radius) of the regular output grid, m."""
@@ -334,8 +455,6 @@ def _remote_image(layout: Layout, settings: InversionSettings, rho_ref_ohmm: flo
     The worker keeps one :class:`DriveInverter` per layout and settings, so its mesh, operator
     and factors are built once per worker, not once per advance.
     """
-    from tbminv.cache import cache_key
-
     key = cache_key({"layout": layout.to_dict(), "settings": settings.to_dict()})
     inv = _WORKER_INVERTERS.get(key)
     if inv is None:

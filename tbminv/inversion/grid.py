@@ -8,8 +8,11 @@ from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
+import scipy.sparse as sp
 
-from tbminv.inversion.settings import InversionSettings
+from tbminv.forward.grading import graded_nodes
+from tbminv.gimli import pg
+from tbminv.inversion.settings import InversionError, InversionSettings
 from tbminv.layout import Layout
 
 
@@ -19,16 +22,8 @@ def _graded(lo: float, hi: float, fine_lo: float, fine_hi: float, h: float,
     """Nodes from lo to hi: spacing h in [fine_lo, fine_hi], growing by ``growth`` outside."""
     inner = np.arange(fine_lo, fine_hi + 0.5 * h, h)
     inner[-1] = fine_hi
-    right = [fine_hi]
-    step = h
-    while right[-1] < hi:
-        step *= growth
-        right.append(min(hi, right[-1] + step))
-    left = [fine_lo]
-    step = h
-    while left[-1] > lo:
-        step *= growth
-        left.append(max(lo, left[-1] - step))
+    right = graded_nodes(fine_hi, hi, h * growth, growth, end="cut")
+    left = graded_nodes(fine_lo, lo, h * growth, growth, end="cut")
     nodes = np.concatenate([left[::-1], inner[1:-1], right])
     return np.unique(np.round(nodes, 9))
 
@@ -77,12 +72,43 @@ class ParameterGrid:
         out[outside] = -1
         return out
 
+    def forward_mapping(self, centers: np.ndarray) -> sp.csr_matrix:
+        """0/1 matrix taking parameters to forward cells: ``rho_forward = P @ rho_param``.
+
+        Parameters
+        ----------
+        centers : ndarray (n_forward_ground_cells, 2)
+            (ahead, radius) of the forward model's ground cells, m (machine frame).
+
+        Returns
+        -------
+        scipy.sparse.csr_matrix
+            Shape (n_forward_ground_cells, n_param); each forward cell takes the value of the
+            parameter cell that contains its centre.
+
+        Raises
+        ------
+        InversionError
+            A forward cell lies outside the parameter grid, or a parameter cell holds no
+            forward cell (the forward mesh must carry the parameter grid lines).
+        """
+        c = np.asarray(centers, float)
+        p = self.locate(c[:, 0], c[:, 1])
+        if np.any(p < 0):
+            raise InversionError(f"{int((p < 0).sum())} forward ground cells lie outside the "
+                                 "parameter grid: enlarge the parameter domain")
+        mapping = sp.csr_matrix((np.ones(p.size), (np.arange(p.size), p)),
+                                shape=(p.size, self.n_param))
+        empty = np.asarray(mapping.sum(axis=0)).ravel() == 0
+        if empty.any():
+            raise InversionError(f"{int(empty.sum())} parameter cells hold no forward cell; "
+                                 "the forward mesh must follow the parameter grid")
+        return mapping
+
 
 def build_parameter_grid(layout: Layout, settings: InversionSettings,
                          domain_m: float = 1500.0) -> ParameterGrid:
     """The parameter grid of a layout (see :class:`ParameterGrid`)."""
-    from tbminv.gimli import pg
-
     d = layout.machine.diameter_m
     big_r = layout.machine.radius_m
     shield = layout.machine.shield_length_m
@@ -139,7 +165,7 @@ def _machine_positions(layout: Layout) -> list[tuple[float, float, float] | None
         if e.fixed_in_ground or e.at_infinity or e.kind == "machine" or e.on_steel:
             out.append(None)
         else:
-            out.append(layout.positions_cylindrical(0.0, 0.0)[e.label])
+            out.append(layout.positions_cylindrical(0.0, 0.0)[e.label])  # face 0 m, angle 0
     return out
 
 

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import logging
 import math
 import time
 from collections.abc import Sequence
@@ -9,11 +10,16 @@ from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
+from scipy.interpolate import NearestNDInterpolator, RegularGridInterpolator
 
+from tbminv.gimli import pg
 from tbminv.inversion.grid import ParameterGrid
 from tbminv.inversion.operator import DriveOperator, make_pg_modelling
+from tbminv.inversion.outcome import POSTPROCESS_DOI_FAILED
 from tbminv.inversion.settings import InversionError, InversionSettings
 from tbminv.readings.advance import AdvanceData
+
+_LOG = logging.getLogger(__name__)
 
 
 # ------------------------------------------------------------------------ one advance
@@ -36,6 +42,8 @@ class ImageResult:
     response_ohmm: np.ndarray
     data_ohmm: np.ndarray
     rel_error: np.ndarray
+    postprocess_flag: int = 0
+    """``POSTPROCESS_*`` bits (:mod:`tbminv.inversion.outcome`) of steps that failed here."""
 
 
 def invert_image(op: DriveOperator, data: AdvanceData, k: np.ndarray,
@@ -55,8 +63,6 @@ def invert_image(op: DriveOperator, data: AdvanceData, k: np.ndarray,
     reference_model : ndarray, optional
         Regularise the change from this model (time-lapse mode); it is also the start.
     """
-    from tbminv.gimli import pg
-
     t0 = time.perf_counter()
     rhoa = k * data.r_ohm
     sel = np.nonzero(np.isfinite(rhoa) & (rhoa > 0) & np.isfinite(data.rel_error)
@@ -132,13 +138,19 @@ def invert_image(op: DriveOperator, data: AdvanceData, k: np.ndarray,
     js = jac[sel] / (data.r_ohm[sel][:, None] * err[:, None])   # d ln R / d ln rho / sigma_ln
     cov = np.log10(np.maximum(np.abs(js).sum(axis=0) / op.grid.volume_m3, 1e-300))
     doi = None
+    flag = 0
     if settings.doi:
-        _, m_lo = run(settings.lam, 1.0, model, 4, reference=np.full_like(model, 0.5 * med))
-        _, m_hi = run(settings.lam, 1.0, model, 4, reference=np.full_like(model, 2.0 * med))
-        doi = np.abs(np.log(m_lo) - np.log(m_hi)) / abs(math.log(0.5) - math.log(2.0))
+        try:
+            _, m_lo = run(settings.lam, 1.0, model, 4, reference=np.full_like(model, 0.5 * med))
+            _, m_hi = run(settings.lam, 1.0, model, 4, reference=np.full_like(model, 2.0 * med))
+            doi = np.abs(np.log(m_lo) - np.log(m_hi)) / abs(math.log(0.5) - math.log(2.0))
+        except Exception as exc:  # noqa: BLE001 - degrade: the image stands without its DOI
+            _LOG.warning("advance %d: depth-of-investigation index failed, image kept without "
+                         "it: %s: %s", data.advance, type(exc).__name__, exc)
+            doi, flag = None, POSTPROCESS_DOI_FAILED
     return ImageResult(model, chi2, float(inv.relrms()), iters, lam_used, reason,
                        converged and chi2 <= settings.chi2_flag, time.perf_counter() - t0,
-                       hist, cov, doi, int(sel.size), response, y, err)
+                       hist, cov, doi, int(sel.size), response, y, err, flag)
 
 
 def _lcurve_corner(points: Sequence[tuple[float, float]]) -> int:
@@ -164,8 +176,6 @@ def shift_model(grid: ParameterGrid, model: np.ndarray, advance_m: float) -> np.
     A ground point now ``a`` ahead of the face was ``a + advance_m`` ahead before; values are
     interpolated in log resistivity (nearest ground cell where the old grid has a hole or ends).
     """
-    from scipy.interpolate import NearestNDInterpolator, RegularGridInterpolator
-
     xc = 0.5 * (grid.x_nodes[:-1] + grid.x_nodes[1:])
     rc = 0.5 * (grid.r_nodes[:-1] + grid.r_nodes[1:])
     full = np.full(grid.keep.size, np.nan)

@@ -11,6 +11,15 @@ import numpy as np
 
 _LOG = logging.getLogger(__name__)
 
+#: Bits of the per-advance ``postprocess_flag`` (CF ``flag_masks``): a step after the image
+#: inversion failed for the advance; the image itself is kept.
+POSTPROCESS_CONTACT_FIT_FAILED = 1
+POSTPROCESS_DOI_FAILED = 2
+POSTPROCESS_RESAMPLING_FAILED = 4
+POSTPROCESS_MASKS = (POSTPROCESS_CONTACT_FIT_FAILED, POSTPROCESS_DOI_FAILED,
+                     POSTPROCESS_RESAMPLING_FAILED)
+POSTPROCESS_MEANINGS = "contact_fit_failed doi_failed resampling_failed"
+
 
 class SectionError(ValueError):
     """Results or a store that do not fit the section contract; the message says where."""
@@ -60,7 +69,7 @@ class ContactFit:
 
     @classmethod
     def from_estimate(cls, est: Any, interval_level: float = 0.95) -> ContactFit:
-        """From an object with the fields of :class:`tbminv.contactfit.ContactEstimate`.
+        """From an object with the fields of :class:`tbminv.inversion.contactfit.ContactEstimate`.
 
         ``found == False`` gives NaN distances (no contact within reach) and keeps the
         evidence measures.
@@ -139,8 +148,12 @@ class AdvanceResult:
         Time of the advance's readings, ISO 8601 (UTC), if known.
     z_m : ndarray or None
         Cell centres in height above the tunnel axis, m, increasing (vertical section through
-        the axis, DESIGN 2), instead of ``radius_m``; the section's dimension is then ``z``
-        and ``n_radius`` above reads ``n_z``.
+        the axis; frames in DEVELOPERS.md), instead of ``radius_m``; the section's dimension is
+        then ``z`` and ``n_radius`` above reads ``n_z``.
+    postprocess_flag : int
+        Bits of the post-processing steps that failed for this advance
+        (``POSTPROCESS_*``: contact fit, DOI, resampling; 0: none failed). The image is kept;
+        the failure is logged as a warning.
     """
 
     advance: int
@@ -165,6 +178,7 @@ class AdvanceResult:
     resistivity_hi_ohmm: np.ndarray | None = None
     time: str | None = None
     z_m: np.ndarray | None = None
+    postprocess_flag: int = 0
 
     @property
     def transverse_dim(self) -> str:
@@ -210,4 +224,6 @@ class AdvanceResult:
         self.chi2_history = [float(v) for v in self.chi2_history]
 
 
-__all__ = ["SectionError", "ContactFit", "AdvanceResult"]
+__all__ = ["POSTPROCESS_CONTACT_FIT_FAILED", "POSTPROCESS_DOI_FAILED",
+           "POSTPROCESS_RESAMPLING_FAILED", "POSTPROCESS_MASKS", "POSTPROCESS_MEANINGS",
+           "SectionError", "ContactFit", "AdvanceResult"]

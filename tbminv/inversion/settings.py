@@ -10,6 +10,7 @@ from pathlib import Path
 from typing import Any
 
 from tbminv.inversion.contactfit import ContactFitSettings
+from tbminv.readings.qc import QCSettings
 
 _LOG = logging.getLogger(__name__)
 
@@ -34,7 +35,7 @@ class InversionSettings:
         Forward model for the images (``axisym``).
     forward_settings : str
         ``standard`` (about 0.3 % from a fine reference) or ``fast`` (about 0.6 %, 2-3x
-        faster; :meth:`tbminv.axisym.AxisymSettings.fast`).
+        faster; :meth:`tbminv.forward.axisym.fields.AxisymSettings.fast`).
     lambda_rule : str
         ``cooling`` (default), ``fixed`` or ``lcurve`` (see the module docstring).
     lam : float
@@ -65,7 +66,7 @@ class InversionSettings:
         Start each advance from the previous (shifted) model.
     surface_correction : bool
         With a finite cover, divide each reading by the ratio of homogeneous 3D responses with
-        and without the ground surface (:mod:`tbminv.surface`) before the axisymmetric
+        and without the ground surface (:mod:`tbminv.forward.ratio`) before the axisymmetric
         inversion and contact fit. Default on; it costs two 3D runs per advance (cached).
     time_lapse : bool
         Also regularise towards the previous (shifted) model: the smoothness acts on the
@@ -123,15 +124,13 @@ class InversionSettings:
         return d
 
 
-def load_settings(path: str | Path | None) -> tuple[InversionSettings, Any]:
+def load_settings(path: str | Path | None) -> tuple[InversionSettings, QCSettings]:
     """Read a settings file: ``[invert]``, ``[contact]`` and ``[qc]`` tables.
 
     Returns
     -------
     (InversionSettings, QCSettings)
     """
-    from tbminv.readings.qc import QCSettings
-
     if path is None:
         return InversionSettings(), QCSettings()
     p = Path(path)

@@ -3,24 +3,24 @@
 from __future__ import annotations
 
 from pathlib import Path
-from typing import Any
 
 import numpy as np
 import pandas as pd
+from matplotlib.figure import Figure
 
+from tbminv.plots.section import save_figure
 from tbminv.studies.methods.synthetic import summary_table
 
 
-def plot_comparison(table: pd.DataFrame) -> Any:
+def plot_comparison(table: pd.DataFrame) -> Figure:
     """Figure: distance error and chi2 per advance, time per advance, by method and settings.
 
     Returns
     -------
     matplotlib.figure.Figure
     """
-    import matplotlib.pyplot as plt
-
-    fig, axes = plt.subplots(1, 3, figsize=(13.0, 4.0), constrained_layout=True)
+    fig = Figure(figsize=(13.0, 4.0), layout="constrained")
+    axes = fig.subplots(1, 3)
     groups = list(table.groupby(["method", "settings", "layout"], sort=False))
     markers = {"axisym": "o", "region3d": "s", "section25d": "^"}
     for (m, s, lay), g in groups:
@@ -48,10 +48,6 @@ def plot_comparison(table: pd.DataFrame) -> Any:
 def save_comparison(table: pd.DataFrame, out_dir: str | Path, stem: str = "methods"
                     ) -> list[Path]:
     """Write the table (CSV), its summary (CSV) and the figure (PDF + PNG) into ``out_dir``."""
-    import matplotlib.pyplot as plt
-
-    from tbminv.plots.section import save_figure
-
     out = Path(out_dir)
     out.mkdir(parents=True, exist_ok=True)
     paths = []
@@ -63,7 +59,6 @@ def save_comparison(table: pd.DataFrame, out_dir: str | Path, stem: str = "metho
     paths.append(p)
     fig = plot_comparison(table)
     paths.extend(save_figure(fig, out / stem))
-    plt.close(fig)
     return paths
 
 

@@ -6,25 +6,20 @@ import os
 from pathlib import Path
 
 import numpy as np
+from matplotlib.figure import Figure
 
+from tbminv.cache import atomic_path
 from tbminv.readings.qc import QCResult
 
 
 def write_figure(qc: QCResult, out_dir: str | os.PathLike[str], stem: str = "qc",
                  max_points: int = 20_000) -> dict[str, Path]:
-    """One QC figure as ``<stem>.png`` and ``<stem>.pdf`` (matplotlib, Agg backend).
+    """One QC figure as ``<stem>.png`` and ``<stem>.pdf`` (matplotlib, no pyplot state).
 
     Panels: reciprocal difference vs |R| with the fitted envelopes (at most ``max_points``
     pairs drawn, a fixed random subset), reciprocal-error histogram (all pairs), flagged
     readings per electrode.
     """
-    import matplotlib
-
-    matplotlib.use("Agg", force=False)
-    from matplotlib.figure import Figure
-
-    from tbminv.cache import atomic_path
-
     out = Path(out_dir)
     fig = Figure(figsize=(13.0, 4.2), layout="constrained")
     ax1, ax2, ax3 = fig.subplots(1, 3)

@@ -44,7 +44,7 @@ def plot_response_vs_distance(ds: xr.Dataset, n_best: int = 6) -> Figure:
     Parameters
     ----------
     ds : xarray.Dataset
-        Output of :func:`tbminv.reach.reach_study`.
+        Output of :func:`tbminv.studies.reach.reach_study`.
     n_best : int
         Kinds of reading drawn in colour (the best quadrupole of each; the others in light
         grey).

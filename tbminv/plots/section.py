@@ -26,7 +26,12 @@ from matplotlib.figure import Figure
 from matplotlib.patches import Rectangle
 from matplotlib.ticker import FuncFormatter
 
-from tbminv.results.section import transverse_dim
+from tbminv.results.section import (
+    axis_median_log10,
+    clean_advances,
+    transverse_dim,
+    world_view,
+)
 
 _LOG = logging.getLogger(__name__)
 
@@ -136,11 +141,10 @@ def plot_moving_section(ds: xr.Dataset, ax: Axes | None = None, *, mask: bool = 
                         norm: LogNorm | None = None, world: xr.Dataset | None = None) -> Figure:
     """The moving section in the world frame (chainage x height), with the face positions.
 
-    Each cell shows the latest clean advance that covers it (:func:`tbminv.section.world_view`);
-    the machine is drawn at the last face, every face position is marked on the top edge.
+    Each cell shows the latest clean advance that covers it
+    (:func:`tbminv.results.section.world_view`); the machine is drawn at the last face, every
+    face position is marked on the top edge.
     """
-    from tbminv.results.section import world_view
-
     fig, ax = _new_ax(ax, (10.0, 4.0))
     w = world if world is not None else world_view(ds)
     norm = norm or resistivity_norm(ds)
@@ -190,11 +194,11 @@ def plot_section_ahead(ds: xr.Dataset, advance: int | None = None, ax: Axes | No
             ax.axvspan(lo, hi, color="w", alpha=0.25, lw=0)
         ax.axvline(d, color="w", ls="--", lw=1.2, label=f"fitted contact {d:.1f} m")
         ax.legend(loc="upper left", fontsize=7, framealpha=0.8)
-    flag = int(sub["fit_flag"]) if "fit_flag" in ds else 0
+    clean = bool(clean_advances(ds.sel(advance=[adv]))[0])
     face = float(sub["face_chainage_m"])
-    note = "" if flag == 0 else "  [FLAGGED: fit not clean]"
+    note = "" if clean else "  [FLAGGED: fit not clean]"
     ax.set_title(f"ahead of the face, advance {adv} (face at chainage {face:.1f} m){note}",
-                 color="k" if flag == 0 else "C3")
+                 color="k" if clean else "C3")
     ax.set_xlabel("distance ahead of the face (m)")
     ax.set_ylabel("height above axis (m)")
     ax.set_xlim(float(ahead[0]), float(ahead[-1]))
@@ -202,15 +206,6 @@ def plot_section_ahead(ds: xr.Dataset, advance: int | None = None, ax: Axes | No
     _colorbar(fig, mesh, ax)
     _mask_note(ax, mask)
     return fig
-
-
-def _profile(ds: xr.Dataset, adv: int, radius_m: float, var: str = "resistivity") -> np.ndarray:
-    rad = np.abs(ds[transverse_dim(ds)].values)
-    sel = rad <= max(radius_m, rad.min())
-    vals = np.log10(ds[var].sel(advance=adv).values[:, sel])
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore", RuntimeWarning)
-        return np.nanmedian(vals, axis=1)
 
 
 def ahead_profile(ds: xr.Dataset, advance: int | None = None, *, radius_m: float | None = None,
@@ -231,23 +226,26 @@ def ahead_profile(ds: xr.Dataset, advance: int | None = None, *, radius_m: float
     diam = float(ds.attrs.get("machine_diameter_m", 6.0))
     r = radius_m if radius_m is not None else diam / 2.0
     ahead = ds["ahead"].values
-    prof = _profile(ds, adv, r)
+
+    def profile(a: int, var: str = "resistivity") -> np.ndarray:
+        return axis_median_log10(ds, a, r, var=var, covered_only=False)
+
+    prof = profile(adv)
     rad = np.abs(ds[transverse_dim(ds)].values)
     cov = ds["covered"].sel(advance=adv).values[:, rad <= max(r, rad.min())].any(axis=1)
     if "resistivity_lo" in ds and "resistivity_hi" in ds:
-        lo, hi = _profile(ds, adv, r, "resistivity_lo"), _profile(ds, adv, r, "resistivity_hi")
+        lo, hi = profile(adv, "resistivity_lo"), profile(adv, "resistivity_hi")
         band = "per-cell bound of the inversion"
     else:
         face = float(ds["face_chainage_m"].sel(advance=adv))
-        flags = ds["fit_flag"].values if "fit_flag" in ds else np.zeros(ds.sizes["advance"])
-        advs = [int(a) for a, f in zip(ds["advance"].values, flags)
-                if f == 0 and a <= adv][-n_band:]
+        advs = [int(a) for a, ok in zip(ds["advance"].values, clean_advances(ds))
+                if ok and a <= adv][-n_band:]
         if adv not in advs:
             advs.append(adv)
         stack = []
         for a in advs:
             f = float(ds["face_chainage_m"].sel(advance=a))
-            p = _profile(ds, a, r)
+            p = profile(a)
             stack.append(np.interp(ahead + face - f, ahead, p, left=np.nan, right=np.nan))
         with warnings.catch_warnings():
             warnings.simplefilter("ignore", RuntimeWarning)
@@ -318,7 +316,7 @@ def chainage_history(ds: xr.Dataset, chainage_m: float, *,
                     for i in range(face.size)])
     cov = np.array([np.interp(d[i], ahead, covd[i], left=0.0, right=0.0)
                     for i in range(face.size)]) >= 0.5
-    clean = (ds["fit_flag"].values == 0) if "fit_flag" in ds else np.ones(face.size, bool)
+    clean = clean_advances(ds)
     return {"advance": ds["advance"].values, "face_chainage_m": face, "ahead_m": d,
             "resistivity_ohmm": 10.0**rho, "covered": cov & np.isfinite(rho), "clean": clean}
 
@@ -361,9 +359,8 @@ def plot_data_fit(ds: xr.Dataset, ax: Axes | None = None, *,
     fig, ax = _new_ax(ax, (8.0, 3.2))
     adv = ds["advance"].values
     chi2 = ds["chi2"].values
-    flags = ds["fit_flag"].values if "fit_flag" in ds else np.zeros(adv.size, int)
     ax.plot(adv, chi2, "-o", color="C0", ms=4, label="chi² (left)")
-    bad = flags != 0
+    bad = ~clean_advances(ds)
     if bad.any():
         ax.plot(adv[bad], chi2[bad], "s", mfc="none", mec="C3", ms=9,
                 label="flagged (not converged or misfit)")

@@ -1,6 +1,6 @@
 """Quality control of checked readings and an error model per advance or per shift.
 
-What is computed, per reading of a :class:`tbminv.readings.Readings` table:
+What is computed, per reading of a :class:`tbminv.readings.reader.Readings` table:
 
 * ``r_ohm``: transfer resistance ``voltage_v / current_a``, ohm.
 * Reciprocal pairs, found automatically within one advance: the current and potential dipoles
@@ -36,6 +36,7 @@ import logging
 import math
 import os
 import tomllib
+import warnings
 from collections.abc import Mapping
 from dataclasses import asdict, dataclass, fields
 from pathlib import Path
@@ -45,6 +46,7 @@ import numpy as np
 import pandas as pd
 from scipy.optimize import nnls
 
+from tbminv.gimli import ert
 from tbminv.readings.reader import LABEL_COLUMNS, Readings
 
 _LOG = logging.getLogger(__name__)
@@ -367,8 +369,6 @@ def quadrupole_keys(table: pd.DataFrame, unify: bool = True) -> tuple[np.ndarray
 
     Built by pyGIMLi's ``uniqueERTIndex`` (poles have code -1).
     """
-    from tbminv.gimli import ert
-
     codes, ncat = _label_codes(table)
     data = _Indices(codes, ncat)
     fwd = np.asarray(ert.uniqueERTIndex(data, unify=unify), dtype=np.int64)
@@ -516,8 +516,6 @@ def _neighbour_median(table: pd.DataFrame, r: np.ndarray, window: int
     count = np.isfinite(nb).sum(axis=1)
     nb = np.column_stack([med["r"].to_numpy(), nb])  # the advance itself: a robust centre
     with np.errstate(all="ignore"):
-        import warnings
-
         with warnings.catch_warnings():
             warnings.simplefilter("ignore", RuntimeWarning)
             m = np.nanmedian(nb, axis=1)
@@ -533,7 +531,7 @@ def run_qc(readings: Readings | pd.DataFrame, settings: QCSettings | None = None
     Parameters
     ----------
     readings : Readings or pandas.DataFrame
-        From :func:`tbminv.readings.read_readings` (or its ``table``).
+        From :func:`tbminv.readings.reader.read_readings` (or its ``table``).
     settings : QCSettings, optional
         Defaults: :class:`QCSettings` (no fallback error model).
 

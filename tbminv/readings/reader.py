@@ -1,4 +1,4 @@
-"""Readings log: read, validate, quarantine (design note section 3.2).
+"""Readings log: read, validate, quarantine (format: DEVELOPERS.md, "File formats").
 
 A readings log has one row per reading. Required columns: ``advance``, ``face_chainage_m``,
 ``a``, ``b``, ``m``, ``n`` (electrode labels of the layout; ``b`` or ``n`` empty for a pole),
@@ -9,7 +9,8 @@ UTC), ``cutterhead_deg``, ``stack_n``, ``voltage_std_v``, ``contact_ohm_a``,
 Every row that fails validation goes to the quarantine table, one row per failing field, with
 the columns ``file, line, field, value, reason``; ``line`` is the 1-based line in the file
 (header = line 1). For Parquet logs ``line`` is the row number + 1, so that the first data row
-is line 2 as in a CSV file. A problem with a whole row (wrong number of fields, bad quoting,
+is line 2 as in a CSV file; for a pandas DataFrame ``line`` is the 0-based position of the row
+in the frame. A problem with a whole row (wrong number of fields, bad quoting,
 not UTF-8, an exact repeat of an earlier row) has the field ``(row)``. The good rows go on;
 nothing is dropped silently; the input file is only ever opened for reading.
 
@@ -30,7 +31,7 @@ import logging
 import math
 import os
 from collections.abc import Iterable, Iterator
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
@@ -39,110 +40,45 @@ import pandas as pd
 import pyarrow as pa
 import pyarrow.compute as pc
 import pyarrow.csv as pacsv
+import pyarrow.parquet as pq
 
 from tbminv.cache import atomic_path
+from tbminv.readings.logformat import (
+    LABEL_COLUMNS,
+    OPTIONAL_COLUMNS,
+    OPTIONAL_NUMERIC_COLUMNS,
+    QUARANTINE_COLUMNS,
+    R_ANGLE,
+    R_CHAINAGE_BACK,
+    R_CURRENT,
+    R_DUPLICATE,
+    R_DUPLICATE_CONFLICT,
+    R_ENCODING,
+    R_FIELD_COUNT,
+    R_MISSING,
+    R_NEGATIVE,
+    R_NON_NUMERIC,
+    R_NOT_FINITE,
+    R_NOT_INTEGER,
+    R_QUOTING,
+    R_SAME,
+    R_STACK,
+    R_TIME,
+    R_UNKNOWN_LABEL,
+    REASONS,
+    REQUIRED_COLUMNS,
+    ROW_FIELD,
+    ReadingsError,
+    ReadSummary,
+)
 
 _LOG = logging.getLogger(__name__)
-
-REQUIRED_COLUMNS: tuple[str, ...] = ("advance", "face_chainage_m", "a", "b", "m", "n",
-                                     "current_a", "voltage_v")
-"""Columns every readings log must have."""
-OPTIONAL_NUMERIC_COLUMNS: tuple[str, ...] = ("cutterhead_deg", "stack_n", "voltage_std_v",
-                                             "contact_ohm_a", "contact_ohm_m")
-"""Optional numeric columns (empty cell or ``nan``: not logged for that reading)."""
-OPTIONAL_COLUMNS: tuple[str, ...] = ("time",) + OPTIONAL_NUMERIC_COLUMNS
-"""All optional columns with a meaning."""
-LABEL_COLUMNS: tuple[str, ...] = ("a", "b", "m", "n")
-QUARANTINE_COLUMNS: tuple[str, ...] = ("file", "line", "field", "value", "reason")
-"""Columns of ``quarantine.csv`` (a contract)."""
-ROW_FIELD = "(row)"
-"""Field name in the quarantine for problems with a whole row."""
-
-# quarantine reasons (fixed texts, counted in the summary)
-R_MISSING = "missing field"
-R_NON_NUMERIC = "non-numeric"
-R_NOT_FINITE = "NaN or inf"
-R_NOT_INTEGER = "not an integer"
-R_CURRENT = "zero or negative current"
-R_NEGATIVE = "negative value"
-R_STACK = "stack count not a positive integer"
-R_UNKNOWN_LABEL = "unknown electrode label"
-R_TIME = "not an ISO 8601 time"
-R_ANGLE = "cutterhead angle outside [0, 360)"
-R_CHAINAGE_BACK = "face chainage going backwards within one advance"
-R_DUPLICATE = "duplicated reading"
-R_DUPLICATE_CONFLICT = "duplicated reading with different values"
-R_FIELD_COUNT = "wrong number of fields"
-R_ENCODING = "not UTF-8 text"
-R_QUOTING = "bad quoting"
-R_SAME = {("a", "b"): "A = B", ("a", "m"): "A = M", ("a", "n"): "A = N",
-          ("b", "m"): "B = M", ("b", "n"): "B = N", ("m", "n"): "M = N"}
-REASONS: tuple[str, ...] = (R_MISSING, R_NON_NUMERIC, R_NOT_FINITE, R_NOT_INTEGER, R_CURRENT,
-                            R_NEGATIVE, R_STACK, R_UNKNOWN_LABEL, R_TIME, R_ANGLE,
-                            R_CHAINAGE_BACK, R_DUPLICATE, R_DUPLICATE_CONFLICT, R_FIELD_COUNT,
-                            R_ENCODING, R_QUOTING, *R_SAME.values())
-"""Every reason the reader can give."""
 
 _NAN_TEXT = frozenset({"nan", "+nan", "-nan"})
 _VALUE_MAX_CHARS = 200
 
 
-class ReadingsError(ValueError):
-    """A readings log that cannot be read at all.
-
-    The message names the file and what was expected.
-    """
-
-
 # --------------------------------------------------------------------------- results
-@dataclass
-class ReadSummary:
-    """Counts of one read.
-
-    Attributes
-    ----------
-    file : str
-        The log read.
-    format : str
-        ``"csv"`` or ``"parquet"``.
-    rows_read : int
-        Data rows read (header and blank lines not counted).
-    rows_kept : int
-        Rows that passed every check.
-    rows_quarantined : int
-        Rows with at least one quarantine entry (``rows_read = rows_kept + rows_quarantined``).
-    blank_lines : int
-        Empty or all-blank lines, skipped (not readings).
-    by_reason : dict
-        Reason -> number of rows quarantined for it (a row can count under several reasons).
-    """
-
-    file: str
-    format: str
-    rows_read: int = 0
-    rows_kept: int = 0
-    rows_quarantined: int = 0
-    blank_lines: int = 0
-    by_reason: dict[str, int] = field(default_factory=dict)
-
-    def to_dict(self) -> dict[str, Any]:
-        """Plain dictionary (JSON-ready)."""
-        return {"file": self.file, "format": self.format, "rows_read": self.rows_read,
-                "rows_kept": self.rows_kept, "rows_quarantined": self.rows_quarantined,
-                "blank_lines": self.blank_lines, "quarantined_by_reason": dict(self.by_reason)}
-
-    def to_text(self) -> str:
-        """A few lines of plain text."""
-        out = [f"readings log: {self.file} ({self.format})",
-               f"rows read: {self.rows_read}", f"rows kept: {self.rows_kept}",
-               f"rows quarantined: {self.rows_quarantined}"]
-        if self.blank_lines:
-            out.append(f"blank lines skipped: {self.blank_lines}")
-        for reason, count in sorted(self.by_reason.items(), key=lambda kv: (-kv[1], kv[0])):
-            out.append(f"  {count:>9d}  {reason}")
-        return "\n".join(out)
-
-
 @dataclass
 class Readings:
     """Checked readings of one log.
@@ -215,22 +151,32 @@ def _label_set(layout: Any) -> tuple[tuple[str, ...] | None, frozenset[str]]:
     return labels, frozenset(at_inf)
 
 
-def read_readings(path: str | os.PathLike[str], layout: Any = None, *,
-                  chunk_bytes: int = 8 << 20, chunk_rows: int = 200_000) -> Readings:
-    """Read and check a readings log (CSV or Parquet).
+FRAME_LABEL = "<DataFrame>"
+"""File label of readings handed over as a pandas DataFrame (quarantine ``file`` column)."""
+
+
+def read_readings(path: str | os.PathLike[str] | pd.DataFrame, layout: Any = None, *,
+                  chunk_bytes: int = 8 << 20, chunk_rows: int = 200_000,
+                  label: str = FRAME_LABEL) -> Readings:
+    """Read and check a readings log (CSV, Parquet or a pandas DataFrame).
 
     Parameters
     ----------
-    path : path-like
+    path : path-like or pandas.DataFrame
         The log. ``.parquet`` / ``.pq`` files are read as Parquet, anything else as CSV
         (UTF-8, comma-separated, header line first; a UTF-8 byte-order mark and CRLF line
-        ends are accepted).
+        ends are accepted). A DataFrame (columns as in a log file) gets the same checks and
+        quarantine; its ``line`` is the 0-based position of the row in the frame
+        (``frame.iloc[line]``) and NaN or None is an empty cell.
     layout : Layout or iterable of str, optional
         Electrode labels are checked against ``layout.labels``; None skips that check.
     chunk_bytes : int
         Bytes of CSV read per chunk (bounds the working memory).
     chunk_rows : int
-        Rows per Parquet batch.
+        Rows per Parquet batch or DataFrame slice.
+    label : str
+        Name of a DataFrame in the quarantine and the summary (files are named by their
+        path).
 
     Returns
     -------
@@ -240,13 +186,19 @@ def read_readings(path: str | os.PathLike[str], layout: Any = None, *,
     Raises
     ------
     ReadingsError
-        When the file cannot be read at all.
+        When the file (or frame) cannot be read at all.
     """
+    labels, at_inf = _label_set(layout)
+    if isinstance(path, pd.DataFrame):
+        checker = _Checker(label, "dataframe", labels, at_inf)
+        for raw, lines in _frame_chunks(path, label, chunk_rows, checker):
+            checker.check_chunk(raw, lines)
+        pa.default_memory_pool().release_unused()
+        return checker.finish()
     path = Path(path)
     src = str(path)
     if not path.is_file():
         raise ReadingsError(f"{src}: no such readings log (expected a CSV or Parquet file)")
-    labels, at_inf = _label_set(layout)
     fmt = "parquet" if path.suffix.lower() in (".parquet", ".pq") else "csv"
     checker = _Checker(src, fmt, labels, at_inf)
     if fmt == "parquet":
@@ -432,8 +384,6 @@ def _python_parse(good: list[bytes], nos: np.ndarray, names: list[str], ncol: in
 # ------------------------------------------------------------------- Parquet chunks
 def _parquet_chunks(path: Path, chunk_rows: int,
                     checker: _Checker) -> Iterator[tuple[dict[str, pa.Array], np.ndarray]]:
-    import pyarrow.parquet as pq
-
     src = str(path)
     try:
         pf = pq.ParquetFile(path)
@@ -451,21 +401,53 @@ def _parquet_chunks(path: Path, chunk_rows: int,
         n = batch.num_rows
         nos = np.arange(row0 + 2, row0 + 2 + n, dtype=np.int64)
         row0 += n
-        cols: dict[str, pa.Array] = {}
-        for c in names:
-            arr = batch.column(c)
-            if pa.types.is_string(arr.type) or pa.types.is_large_string(arr.type):
-                text = pc.utf8_trim_whitespace(arr.cast(pa.string()))
-            elif pa.types.is_floating(arr.type) or pa.types.is_integer(arr.type):
-                text = pc.cast(arr, pa.string())  # shortest round-trip text; nan, inf kept
-            elif pa.types.is_timestamp(arr.type):
-                text = pa.array([("" if v is None else v.isoformat()) for v in arr.to_pylist()],
-                                type=pa.string())
-            else:
-                text = pa.array([("" if v is None else str(v).strip()) for v in arr.to_pylist()],
-                                type=pa.string())
-            cols[c] = text.fill_null("")
-        yield cols, nos
+        yield {c: _as_text(batch.column(c)) for c in names}, nos
+
+
+def _as_text(arr: pa.Array) -> pa.Array:
+    """A typed column as the text a CSV cell would hold (null: empty cell)."""
+    if pa.types.is_dictionary(arr.type):
+        arr = arr.dictionary_decode()
+    if pa.types.is_string(arr.type) or pa.types.is_large_string(arr.type):
+        text = pc.utf8_trim_whitespace(arr.cast(pa.string()))
+    elif pa.types.is_floating(arr.type) or pa.types.is_integer(arr.type):
+        text = pc.cast(arr, pa.string())  # shortest round-trip text; nan, inf kept
+    elif pa.types.is_timestamp(arr.type):
+        text = pa.array([("" if v is None else v.isoformat()) for v in arr.to_pylist()],
+                        type=pa.string())
+    else:
+        text = pa.array([("" if v is None else str(v).strip()) for v in arr.to_pylist()],
+                        type=pa.string())
+    return text.fill_null("")
+
+
+# ------------------------------------------------------------------ DataFrame chunks
+def _frame_column(series: pd.Series) -> pa.Array:
+    """One DataFrame column as Arrow (mixed Python objects fall back to their text)."""
+    try:
+        return pa.Array.from_pandas(series)
+    except (pa.ArrowInvalid, pa.ArrowTypeError, pa.ArrowNotImplementedError):
+        return pa.array([None if v is None or (isinstance(v, float) and math.isnan(v))
+                         else str(v) for v in series.tolist()], type=pa.string())
+
+
+def _frame_chunks(frame: pd.DataFrame, src: str, chunk_rows: int,
+                  checker: _Checker) -> Iterator[tuple[dict[str, pa.Array], np.ndarray]]:
+    names = [str(c) for c in frame.columns]
+    twice = sorted({c for c in names if names.count(c) > 1})
+    if twice:
+        raise ReadingsError(f"{src}: column(s) {', '.join(twice)} named twice; expected one "
+                            f"column each of {', '.join(REQUIRED_COLUMNS)}")
+    missing = [c for c in REQUIRED_COLUMNS if c not in names]
+    if missing:
+        raise ReadingsError(f"{src}: required column(s) {', '.join(missing)} missing (found "
+                            f"{names!r}); expected columns {', '.join(REQUIRED_COLUMNS)}")
+    checker.set_columns(names)
+    step = max(1, chunk_rows)
+    for row0 in range(0, len(frame), step):
+        part = frame.iloc[row0:row0 + step]
+        nos = np.arange(row0, row0 + len(part), dtype=np.int64)
+        yield {c: _as_text(_frame_column(part.iloc[:, j])) for j, c in enumerate(names)}, nos
 
 
 # ----------------------------------------------------------------------- the checks
@@ -778,6 +760,7 @@ def iter_labels(table: pd.DataFrame) -> Iterable[str]:
     return [str(x) for x in used]
 
 
-__all__ = ["REQUIRED_COLUMNS", "OPTIONAL_COLUMNS", "OPTIONAL_NUMERIC_COLUMNS",
-           "QUARANTINE_COLUMNS", "REASONS", "ROW_FIELD", "ReadingsError", "ReadSummary",
-           "Readings", "read_readings", "write_quarantine", "quarantine_reasons", "iter_labels"]
+__all__ = ["REQUIRED_COLUMNS", "OPTIONAL_COLUMNS", "OPTIONAL_NUMERIC_COLUMNS", "LABEL_COLUMNS",
+           "QUARANTINE_COLUMNS", "REASONS", "ROW_FIELD", "FRAME_LABEL", "ReadingsError",
+           "ReadSummary", "Readings", "read_readings", "write_quarantine", "quarantine_reasons",
+           "iter_labels"]

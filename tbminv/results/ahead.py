@@ -46,6 +46,8 @@ from typing import Any
 import numpy as np
 import xarray as xr
 
+from tbminv.results.section import axis_median_log10, clean_advances
+
 _LOG = logging.getLogger(__name__)
 
 LEVELS = ("none seen", "watch", "likely", "firm")
@@ -242,22 +244,12 @@ class AheadSummary:
 def axial_profile(ds: xr.Dataset, advance: int, radius_m: float) -> tuple[np.ndarray, np.ndarray]:
     """Covered axial profile of one advance: (ahead_m, log10 resistivity) ahead of the face.
 
-    The median over the covered cells within ``radius_m`` of the axis; the profile stops at the
-    first ahead position with no covered cell.
+    The median over the covered cells within ``radius_m`` of the axis
+    (:func:`tbminv.results.section.axis_median_log10`); the profile stops at the first ahead
+    position with no covered cell.
     """
-    sub = ds.sel(advance=advance)
     ahead = ds["ahead"].values
-    rad = np.abs(ds["z" if "z" in ds.dims else "radius"].values)
-    rsel = rad <= max(radius_m, rad.min())
-    lr = np.log10(sub["resistivity"].values[:, rsel])
-    cov = sub["covered"].values[:, rsel].astype(bool) & np.isfinite(lr)
-    lr = np.where(cov, lr, np.nan)
-    with np.errstate(all="ignore"):
-        import warnings
-
-        with warnings.catch_warnings():
-            warnings.simplefilter("ignore", RuntimeWarning)
-            prof = np.nanmedian(lr, axis=1)
+    prof = axis_median_log10(ds, advance, radius_m)
     keep = ahead >= 0
     a, p = ahead[keep], prof[keep]
     bad = np.flatnonzero(~np.isfinite(p))
@@ -372,7 +364,8 @@ def detect_changes(ds: xr.Dataset, settings: AheadSettings | None = None) -> Ahe
     Parameters
     ----------
     ds : xarray.Dataset
-        Section from :func:`tbminv.section.build_section` / :func:`~tbminv.section.open_section`.
+        Section from :func:`tbminv.results.section.build_section` or
+        :func:`tbminv.results.store.open_section`.
     settings : AheadSettings, optional
         Thresholds.
 
@@ -389,9 +382,9 @@ def detect_changes(ds: xr.Dataset, settings: AheadSettings | None = None) -> Ahe
     ahead = ds["ahead"].values
     cell = float(np.median(np.diff(ahead)))
     adv_all = [int(a) for a in ds["advance"].values]
-    flags = ds["fit_flag"].values if "fit_flag" in ds else np.zeros(len(adv_all), int)
-    clean = [a for a, f in zip(adv_all, flags) if f == 0]
-    flagged = [a for a, f in zip(adv_all, flags) if f != 0]
+    is_clean = clean_advances(ds)
+    clean = [a for a, ok in zip(adv_all, is_clean) if ok]
+    flagged = [a for a, ok in zip(adv_all, is_clean) if not ok]
     window = clean[-st.window_advances:]
     last_face = float(ds["face_chainage_m"].values[-1])
     reach = 0.0

@@ -42,10 +42,18 @@ from pathlib import Path
 from typing import Any
 
 import numpy as np
+import pandas as pd
 import xarray as xr
+from scipy.interpolate import RegularGridInterpolator
 
 import tbminv
-from tbminv.inversion.outcome import AdvanceResult, SectionError
+from tbminv.gimli import versions
+from tbminv.inversion.outcome import (
+    POSTPROCESS_MASKS,
+    POSTPROCESS_MEANINGS,
+    AdvanceResult,
+    SectionError,
+)
 
 _LOG = logging.getLogger(__name__)
 
@@ -97,8 +105,6 @@ def _attrs(long_name: str, units: str | None = None, **extra: Any) -> dict[str, 
 def _interp_grid(r: AdvanceResult, ahead: np.ndarray, radius: np.ndarray,
                  values: np.ndarray, log: bool) -> np.ndarray:
     """Bilinear resampling of one advance's grid onto (ahead, transverse); NaN outside."""
-    from scipy.interpolate import RegularGridInterpolator
-
     v = np.log10(values) if log else values
     trans = r.transverse_m
     if trans.size == 1:
@@ -233,8 +239,9 @@ def build_section(results: Sequence[AdvanceResult], layout_text: str, settings_t
                 out[i] = getattr(c, name)
         return out
 
-    times = np.array([np.datetime64(r.time.rstrip("Z"), "ns") if r.time else np.datetime64("NaT",
-                      "ns") for r in res])
+    # ISO 8601 times with or without a zone (no zone: UTC), stored as UTC without a zone
+    times = (pd.to_datetime([r.time or None for r in res], utc=True, format="ISO8601")
+             .tz_localize(None).to_numpy(dtype="datetime64[ns]"))
     d3 = ("advance", "ahead", tdim)
     da = ("advance",)
     vars_: dict[str, Any] = {
@@ -280,6 +287,11 @@ def build_section(results: Sequence[AdvanceResult], layout_text: str, settings_t
             flag_meanings=FLAG_MEANINGS, chi2_high=float(st.chi2_high),
             chi2_low=float(st.chi2_low),
             comment="0: converged and chi2 within [chi2_low, chi2_high]")),
+        "postprocess_flag": (da, np.array([r.postprocess_flag for r in res], np.int8), _attrs(
+            "post-processing steps that failed", None,
+            flag_masks=np.array(POSTPROCESS_MASKS, np.int8), flag_meanings=POSTPROCESS_MEANINGS,
+            comment="0: every step after the image inversion ran; the image is stored either "
+                    "way (tbminv invert exits with code 3 when a bit is set)")),
         "chi2_history": (("advance", "iteration"), hist,
                          _attrs("chi-squared misfit after each iteration", "1")),
         "contact_ahead_m": (da, contact_field("ahead_m"),
@@ -330,15 +342,13 @@ def build_section(results: Sequence[AdvanceResult], layout_text: str, settings_t
     }
     ds = xr.Dataset(vars_, coords=coords)
     created = _dt.datetime.now(_dt.UTC).strftime("%Y-%m-%dT%H:%M:%SZ")
-    from tbminv.gimli import versions
-
     ver = versions()
     ds.attrs = {
         "Conventions": "CF-1.8",
         "title": "tbminv moving section (machine frame)",
         "source": "tbminv per-advance inversion",
         "history": f"{created} built by tbminv {tbminv.__version__}",
-        "references": "section store contract of tbminv (DESIGN 3.4)",
+        "references": "tbminv section store format (DEVELOPERS.md, File formats, Section store)",
         "comment": tbminv.CAUTION,
         "tbminv_store_format": STORE_FORMAT,
         "tbminv_version": tbminv.__version__,
@@ -450,8 +460,51 @@ def shift_advances(ds: xr.Dataset, shift: str) -> np.ndarray:
 
 
 def clean_advances(ds: xr.Dataset) -> np.ndarray:
-    """Boolean per advance: no fit flag (converged, chi2 within the flag limits)."""
-    return ds["fit_flag"].values == 0
+    """Boolean per advance: no fit flag (converged, chi2 within the flag limits).
+
+    A section without ``fit_flag`` has every advance clean.
+    """
+    if "fit_flag" not in ds:
+        return np.ones(ds.sizes["advance"], dtype=bool)
+    return np.asarray(ds["fit_flag"].values) == 0
+
+
+def axis_median_log10(ds: xr.Dataset, advance: int, radius_m: float, *,
+                      var: str = "resistivity", covered_only: bool = True) -> np.ndarray:
+    """Median log10 of ``var`` over the cells within ``radius_m`` of the axis, per ``ahead``.
+
+    Parameters
+    ----------
+    ds : xarray.Dataset
+        Section (machine frame).
+    advance : int
+        Advance number.
+    radius_m : float
+        Cells at most this far from the axis (or this far above and below it in a vertical
+        section) count, m; at least the innermost cell always counts.
+    var : str
+        Variable of resistivities, ohm-m (``resistivity``, or a bound of it).
+    covered_only : bool
+        Leave out cells the data do not constrain (``covered == 0``).
+
+    Returns
+    -------
+    ndarray
+        One value per ``ahead`` position, log10(ohm-m); NaN where no cell counts.
+    """
+    rad = np.abs(ds[transverse_dim(ds)].values)
+    sel = rad <= max(radius_m, rad.min())
+    sub = ds.sel(advance=advance)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        vals = np.log10(sub[var].values[:, sel])
+    ok = np.isfinite(vals)
+    if covered_only and "covered" in ds:
+        ok &= sub["covered"].values[:, sel].astype(bool)
+    vals = np.where(ok, vals, np.nan)
+    out = np.full(vals.shape[0], np.nan)
+    rows = ok.any(axis=1)
+    out[rows] = np.nanmedian(vals[rows], axis=1)   # rows with a value only: no warning
+    return out
 
 
 def hash_files(paths: Sequence[str | os.PathLike[str]]) -> str:
@@ -465,4 +518,4 @@ def hash_files(paths: Sequence[str | os.PathLike[str]]) -> str:
 
 __all__ = ["FLAG_NOT_CONVERGED", "FLAG_MISFIT_HIGH", "FLAG_MISFIT_LOW", "FLAG_MEANINGS",
            "STORE_FORMAT", "SectionSettings", "build_section", "world_view", "transverse_dim",
-           "shift_advances", "clean_advances", "hash_files"]
+           "shift_advances", "clean_advances", "axis_median_log10", "hash_files"]

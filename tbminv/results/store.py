@@ -102,6 +102,83 @@ def _provenance_entry(ds: xr.Dataset) -> dict[str, Any]:
         "tbminv_version", "pygimli_version", "pgcore_version")}
 
 
+def _compatible_rest(store: Path, old: xr.Dataset, shift: str, advances: np.ndarray,
+                     ahead: np.ndarray, transverse: np.ndarray, tdim: str,
+                     layout_sha256: str | None) -> xr.Dataset:
+    """The advances of ``old`` not of ``shift``, after checking the new shift fits beside them.
+
+    Raises
+    ------
+    SectionError
+        Another transverse dimension, grid or layout, or advance numbers of another shift.
+    """
+    if transverse_dim(old) != tdim:
+        raise SectionError(f"{store}: shift {shift!r} is a {tdim} section, the store a "
+                           f"{transverse_dim(old)} section")
+    for dim, values in (("ahead", ahead), (tdim, transverse)):
+        if old.sizes[dim] != len(values) or not np.allclose(old[dim].values, values):
+            raise SectionError(f"{store}: the {dim} grid of shift {shift!r} differs from the "
+                               "store's; resample it or start a new store")
+    if old.attrs.get("layout_sha256") != layout_sha256:
+        raise SectionError(f"{store}: shift {shift!r} was inverted with a different layout than "
+                           "the store's; start a new store")
+    keep = old.isel(advance=np.flatnonzero(old["shift"].values.astype(str) != shift))
+    clash = np.intersect1d(keep["advance"].values, np.asarray(advances))
+    if clash.size:
+        owners = sorted(set(keep["shift"].sel(advance=clash).values.astype(str)))
+        raise SectionError(f"{store}: advances {clash.tolist()} of shift {shift!r} are already "
+                           f"stored under shift(s) {owners}")
+    return keep
+
+
+def check_appendable(store_path: str | os.PathLike[str], *, shift: str,
+                     advances: np.ndarray, ahead: np.ndarray, transverse: np.ndarray,
+                     layout_sha256: str, tdim: str = "radius") -> Path:
+    """Check, before any work, that a shift can be appended to the store.
+
+    Writes a probe file beside the store and removes it (the folder is writable), and, when
+    the store exists, checks what :func:`append_shift` will check: the same transverse
+    dimension, grid and layout, and no advance number held by another shift.
+
+    Parameters
+    ----------
+    store_path : str or path-like
+        The section store (NetCDF; need not exist).
+    shift : str
+        The shift label the advances will be stored under.
+    advances : ndarray of int
+        Advance numbers of the shift.
+    ahead, transverse : ndarray
+        The output grid, m.
+    layout_sha256 : str
+        SHA-256 of the layout text (the ``layout_sha256`` attribute of the section).
+    tdim : str
+        ``radius`` or ``z``.
+
+    Returns
+    -------
+    pathlib.Path
+        The store.
+
+    Raises
+    ------
+    SectionError
+        The folder is not writable, or the store cannot take the shift; nothing is changed.
+    """
+    store = Path(store_path)
+    try:
+        store.parent.mkdir(parents=True, exist_ok=True)
+        with atomic_path(store.with_name(f".{store.name}.probe")) as tmp:
+            tmp.write_bytes(b"tbminv store probe\n")
+        store.with_name(f".{store.name}.probe").unlink()
+    except OSError as exc:
+        raise SectionError(f"{store}: cannot write beside the store ({exc})") from None
+    if store.exists():
+        _compatible_rest(store, open_section(store), str(shift), advances, ahead, transverse,
+                         tdim, layout_sha256)
+    return store
+
+
 def append_shift(store_path: str | os.PathLike[str], ds: xr.Dataset, shift: str) -> Path:
     """Add one shift's advances to the store (create it if missing), atomically.
 
@@ -144,23 +221,9 @@ def append_shift(store_path: str | os.PathLike[str], ds: xr.Dataset, shift: str)
         if store.exists():
             old = open_section(store)
             provenance = json.loads(old.attrs.get("provenance_by_shift", "{}") or "{}")
-            if transverse_dim(old) != transverse_dim(new):
-                raise SectionError(f"{store}: shift {shift!r} is a {transverse_dim(new)} "
-                                   f"section, the store a {transverse_dim(old)} section")
-            for dim in ("ahead", transverse_dim(new)):
-                if (old.sizes[dim] != new.sizes[dim]
-                        or not np.allclose(old[dim].values, new[dim].values)):
-                    raise SectionError(f"{store}: the {dim} grid of shift {shift!r} differs "
-                                       "from the store's; resample it or start a new store")
-            if old.attrs.get("layout_sha256") != new.attrs.get("layout_sha256"):
-                raise SectionError(f"{store}: shift {shift!r} was inverted with a different "
-                                   "layout than the store's; start a new store")
-            keep = old.isel(advance=np.flatnonzero(old["shift"].values.astype(str) != shift))
-            clash = np.intersect1d(keep["advance"].values, new["advance"].values)
-            if clash.size:
-                owners = sorted(set(keep["shift"].sel(advance=clash).values.astype(str)))
-                raise SectionError(f"{store}: advances {clash.tolist()} of shift {shift!r} are "
-                                   f"already stored under shift(s) {owners}")
+            keep = _compatible_rest(store, old, shift, new["advance"].values, new["ahead"].values,
+                                    new[transverse_dim(new)].values, transverse_dim(new),
+                                    new.attrs.get("layout_sha256"))
             n_it = max(keep.sizes.get("iteration", 1), new.sizes.get("iteration", 1))
             parts = [p.reindex(iteration=np.arange(n_it, dtype=np.int32)) for p in (keep, new)]
             merged = xr.concat(parts, dim="advance", data_vars="minimal", coords="minimal",
@@ -177,7 +240,8 @@ def append_shift(store_path: str | os.PathLike[str], ds: xr.Dataset, shift: str)
                                      f"shift {shift} written to the store").strip()
         merged.attrs["provenance_by_shift"] = json.dumps(provenance, sort_keys=True)
         merged.attrs["shifts"] = " ".join(sorted(provenance))
-        for name in ("covered", "fit_flag", "converged", "iterations", "n_data", "n_used"):
+        for name in ("covered", "fit_flag", "postprocess_flag", "converged", "iterations",
+                     "n_data", "n_used"):
             if name in merged and merged[name].dtype.kind == "f":  # concat may promote
                 merged[name] = merged[name].fillna(0).astype(ds[name].dtype)
         with atomic_path(store) as tmp:
@@ -186,4 +250,4 @@ def append_shift(store_path: str | os.PathLike[str], ds: xr.Dataset, shift: str)
     return store
 
 
-__all__ = ["ENGINE", "open_section", "append_shift"]
+__all__ = ["check_appendable", "ENGINE", "open_section", "append_shift"]

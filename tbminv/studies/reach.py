@@ -26,6 +26,7 @@ from typing import Any
 import numpy as np
 import xarray as xr
 
+from tbminv.forward.registry import ForwardModel, make_model
 from tbminv.ground import Contact, Scenario, Sphere
 from tbminv.layout import Layout
 
@@ -60,10 +61,13 @@ class ReachSettings:
     sphere_radius_m : float
         Radius of the sphere target, m (its near surface is at the distance).
     model : str
-        Forward model name (:mod:`tbminv.models`).
+        Forward model name (:mod:`tbminv.forward.registry`).
     face_chainage_m : float or None
         Face chainage for the study; default puts it 5.5 m ahead of the shield tail past the last
         electrode fixed in the ground (or 0 if there are none).
+    model_options : mapping
+        Options of the model built by name (``settings=``; presets:
+        :func:`tbminv.forward.registry.model_options_for`).
     """
 
     contrast: float = 10.0
@@ -112,7 +116,7 @@ def target_scenario(settings: ReachSettings, face_chainage_m: float,
 
 
 def response_vs_distance(layout: Layout, settings: ReachSettings,
-                         model: Any | None = None) -> xr.Dataset:
+                         model: ForwardModel | None = None) -> xr.Dataset:
     """Relative response of every quadrupole as the target approaches the face.
 
     Parameters
@@ -120,7 +124,8 @@ def response_vs_distance(layout: Layout, settings: ReachSettings,
     layout : Layout
     settings : ReachSettings
     model : ForwardModel, optional
-        A model already built for ``layout`` (default: ``make_model(settings.model, layout)``).
+        A model already built for ``layout`` (default: ``make_model(settings.model, layout,
+        **settings.model_options)``).
 
     Returns
     -------
@@ -128,8 +133,6 @@ def response_vs_distance(layout: Layout, settings: ReachSettings,
         ``relative_response`` (measurement, distance_ahead) = R(d)/R0 - 1,
         ``delta_voltage_v`` for the settings' current, ``r0_ohm`` (measurement).
     """
-    from tbminv.forward.registry import make_model
-
     if model is None:
         model = make_model(settings.model, layout, **dict(settings.model_options))
     face = settings.face_chainage_m
@@ -277,7 +280,8 @@ def best_measurements(ds: xr.Dataset, n: int = 5) -> list[dict[str, Any]]:
              "detectable_ahead_m": float(det[i])} for i in order]
 
 
-def reach_study(layout: Layout, settings: ReachSettings, model: Any | None = None) -> xr.Dataset:
+def reach_study(layout: Layout, settings: ReachSettings,
+                model: ForwardModel | None = None) -> xr.Dataset:
     """Response vs distance and detectability for one layout (see the module docstring)."""
     ds = response_vs_distance(layout, settings, model)
     return detectability(ds, noise_rel=settings.noise_rel, noise_abs_v=settings.noise_abs_v,
@@ -311,27 +315,6 @@ def load_sweep(path: str | Path) -> tuple[dict[str, list[float]], dict[str, Any]
     return out, dict(data.get("options", {}))
 
 
-MODEL_SETTINGS_CHOICES = ("fast", "standard")
-
-
-def model_options_for(model: str, choice: str = "fast") -> dict[str, Any]:
-    """Forward-model options for a named accuracy choice.
-
-    ``fast`` (CLI default) is :meth:`tbminv.axisym.AxisymSettings.fast` (coarser mesh, fewer
-    harmonics, about 0.6 % from a fine reference on the demo layout, bench/results/axisym.json);
-    ``standard`` is the model's defaults (about 0.3 %, 2-3x slower). Models other than
-    ``axisym`` take no options here.
-    """
-    if choice not in MODEL_SETTINGS_CHOICES:
-        raise ValueError(f"model settings {choice!r}: expected one of "
-                         f"{', '.join(MODEL_SETTINGS_CHOICES)}")
-    if model != "axisym" or choice == "standard":
-        return {}
-    from tbminv.forward.axisym.fields import AxisymSettings
-
-    return {"settings": AxisymSettings.fast()}
-
-
 __all__ = ["SWEEP_PARAMETERS", "ReachSettings", "default_face_chainage", "target_scenario",
            "response_vs_distance", "reading_family", "detectability", "best_measurements",
-           "reach_study", "load_sweep", "MODEL_SETTINGS_CHOICES", "model_options_for"]
+           "reach_study", "load_sweep"]

@@ -1,18 +1,18 @@
-"""Synthetic drives: layout + ground scenario -> a readings log (DESIGN §3.2) with noise.
+"""Synthetic drives: layout + ground scenario -> a readings log with noise.
 
-For each face chainage the chosen forward model gives the transfer resistance (V/A) of every
-quadrupole of the protocol and of its reciprocal (current and potential pairs swapped); the log
-holds one row per reading, normal then reciprocal. Noise is Gaussian, relative plus absolute,
-drawn independently for every row from ``numpy.random.default_rng(seed)`` (same seed, same
-log)::
+The log has the columns of the readings-log format (DEVELOPERS.md, "File formats"). For each face
+chainage the chosen forward model gives the transfer resistance (V/A) of every quadrupole of the
+protocol and of its reciprocal (current and potential pairs swapped); the log holds one row per
+reading, normal then reciprocal. Noise is Gaussian, relative plus absolute, drawn independently
+for every row from ``numpy.random.default_rng(seed)`` (same seed, same log)::
 
     voltage_v = V (1 + noise_rel e1) + noise_abs_v e2,   voltage_std_v = sqrt((noise_rel V)^2
                                                                          + noise_abs_v^2)
 
-Forward models are looked up by name in :data:`MODELS` (``register_model`` adds one, e.g. an
-axisymmetric model from another module). A model is a callable
-``model(layout, scenario, face_chainage_m, cutterhead_deg, measurements) -> ndarray`` of transfer
-resistances in V/A, ``measurements`` a list of (a, b, m, n) label tuples (None for a pole).
+The forward model is a registry name (:func:`tbminv.forward.registry.make_model`: ``axisym``,
+``3d``, ``section``, ``analytic``) or a model already built for the layout (any object with
+``response(scenario, face_chainage_m, cutterhead_deg, measurements)``, e.g. a ``Model3D`` with
+coarse settings). Every model computes reciprocals itself.
 
 Contact resistances (columns ``contact_ohm_a``, ``contact_ohm_m``) are those of a hemispherical
 electrode of radius 5 cm in the local ground, ``rho / (2 pi a)`` (the grounding resistance of a
@@ -26,7 +26,7 @@ from __future__ import annotations
 import datetime as _dt
 import logging
 import math
-from collections.abc import Callable, Sequence
+from collections.abc import Sequence
 from pathlib import Path
 from typing import Any
 
@@ -34,10 +34,11 @@ import numpy as np
 import pandas as pd
 
 from tbminv.cache import atomic_path
+from tbminv.forward.registry import ForwardModel, resolve_model
+from tbminv.ground import Scenario
+from tbminv.layout import Layout
 
 _LOG = logging.getLogger(__name__)
-
-ForwardModel = Callable[..., np.ndarray]
 
 COLUMNS = ("advance", "face_chainage_m", "a", "b", "m", "n", "current_a", "voltage_v", "time",
            "cutterhead_deg", "stack_n", "voltage_std_v", "contact_ohm_a", "contact_ohm_m")
@@ -47,77 +48,7 @@ ELECTRODE_RADIUS_M = 0.05
 """Radius of the hemispherical electrode behind the simulated contact resistance, m."""
 
 
-def _model_3d(layout: Any, scenario: Any, face_chainage_m: float, cutterhead_deg: float,
-              measurements: Sequence[tuple]) -> np.ndarray:
-    from tbminv.forward.fem3d.model import forward3d
-
-    return forward3d(layout, scenario, face_chainage_m, cutterhead_deg, measurements)
-
-
-def _model_axisym(layout: Any, scenario: Any, face_chainage_m: float, cutterhead_deg: float,
-                  measurements: Sequence[tuple]) -> np.ndarray:
-    from tbminv.forward.axisym.layout import simulate_model
-
-    return simulate_model(layout, scenario, face_chainage_m, cutterhead_deg, measurements)
-
-
-_SECTION_CACHE: dict[int, Any] = {}
-
-
-def _model_section(layout: Any, scenario: Any, face_chainage_m: float, cutterhead_deg: float,
-                   measurements: Sequence[tuple]) -> np.ndarray:
-    """Cartesian 2.5D comparison model.
-
-    Reciprocal readings take their normal's value (reciprocity of the finite-element operator).
-    """
-    from tbminv.forward.cartesian25d import Cartesian25DModel
-
-    model = _SECTION_CACHE.get(id(layout))
-    if model is None:
-        _SECTION_CACHE.clear()
-        model = _SECTION_CACHE[id(layout)] = Cartesian25DModel(layout)
-    r = model.response(scenario, face_chainage_m, cutterhead_deg)
-    index = {q.labels(): i for i, q in enumerate(layout.measurements)}
-    out = np.empty(len(measurements))
-    for j, (a, b, m, n) in enumerate(measurements):
-        i = index.get((a, b, m, n), index.get((m, n, a, b)))
-        if i is None:
-            raise ValueError(f"section model: reading {(a, b, m, n)} is not in the protocol")
-        out[j] = r[i]
-    return out
-
-
-MODELS: dict[str, ForwardModel] = {"3d": _model_3d, "axisym": _model_axisym,
-                                   "section": _model_section}
-"""Forward models by name: ``3d`` (reference), ``axisym`` (the 2.5D workhorse; axisymmetric
-ground only) and ``section`` (Cartesian 2.5D comparison, ratio-corrected by 3D)."""
-
-
-def register_model(name: str, model: ForwardModel, replace: bool = False) -> None:
-    """Make a forward model available to :func:`simulate_drive` under ``name``.
-
-    Raises
-    ------
-    ValueError
-        If ``name`` is taken and ``replace`` is False.
-    """
-    if not callable(model):
-        raise TypeError(f"forward model {name!r} must be callable")
-    if name in MODELS and not replace:
-        raise ValueError(f"forward model {name!r} is already registered")
-    MODELS[name] = model
-
-
-def get_model(name: str) -> ForwardModel:
-    """The forward model registered under ``name`` (ValueError listing the models if unknown)."""
-    try:
-        return MODELS[name]
-    except KeyError:
-        raise ValueError(f"unknown forward model {name!r}; available models: "
-                         f"{', '.join(sorted(MODELS))}") from None
-
-
-def _protocol_with_reciprocals(layout: Any) -> list[tuple[tuple, bool]]:
+def _protocol_with_reciprocals(layout: Layout) -> list[tuple[tuple, bool]]:
     out: list[tuple[tuple, bool]] = []
     seen: set[tuple] = set()
     for q in layout.measurements:
@@ -133,7 +64,8 @@ def _protocol_with_reciprocals(layout: Any) -> list[tuple[tuple, bool]]:
     return out
 
 
-def _contact_ohm(layout: Any, scenario: Any, face: float, angle: float) -> dict[str, float]:
+def _contact_ohm(layout: Layout, scenario: Scenario, face: float, angle: float
+                 ) -> dict[str, float]:
     pos = layout.positions_world(face, angle)
     out: dict[str, float] = {}
     for e in layout.electrodes:
@@ -152,8 +84,9 @@ def _contact_ohm(layout: Any, scenario: Any, face: float, angle: float) -> dict[
     return out
 
 
-def simulate_drive(layout: Any, scenario: Any, faces_m: Sequence[float], model: str = "3d",
-                   noise_rel: float = 0.0, noise_abs_v: float = 0.0, seed: int | None = None,
+def simulate_drive(layout: Layout, scenario: Scenario, faces_m: Sequence[float],
+                   model: str | ForwardModel = "axisym", noise_rel: float = 0.0,
+                   noise_abs_v: float = 0.0, seed: int | None = None,
                    current_a: float = 1.0, cutterhead_deg: float | Sequence[float] = 0.0,
                    stack_n: int = 4, start_time: str = "2026-01-05T06:00:00+00:00",
                    advance_minutes: float = 45.0, reading_seconds: float = 2.0) -> pd.DataFrame:
@@ -165,8 +98,9 @@ def simulate_drive(layout: Any, scenario: Any, faces_m: Sequence[float], model: 
     scenario : Scenario
     faces_m : sequence of float
         Face chainage of each advance, m (advance numbers 1, 2, ... in this order).
-    model : str
-        Forward model name (see :data:`MODELS`).
+    model : str or ForwardModel
+        Forward model: a registry name (``axisym``, ``3d``, ``section``, ``analytic``) built
+        here with its defaults, or a model built for ``layout``.
     noise_rel : float
         Relative Gaussian noise (standard deviation as a fraction of the voltage).
     noise_abs_v : float
@@ -189,7 +123,7 @@ def simulate_drive(layout: Any, scenario: Any, faces_m: Sequence[float], model: 
     pandas.DataFrame
         Columns :data:`COLUMNS`; ``b`` / ``n`` empty for a pole.
     """
-    fn = get_model(model)
+    fwd = resolve_model(model, layout)
     faces = [float(f) for f in faces_m]
     if noise_rel < 0 or noise_abs_v < 0:
         raise ValueError(f"noise_rel = {noise_rel!r}, noise_abs_v = {noise_abs_v!r}: "
@@ -208,10 +142,10 @@ def simulate_drive(layout: Any, scenario: Any, faces_m: Sequence[float], model: 
     quads = [q for q, _ in proto]
     rows: list[dict[str, Any]] = []
     for adv, (face, ang) in enumerate(zip(faces, angles), start=1):
-        r = np.asarray(fn(layout, scenario, face, ang, quads), float)
+        r = np.asarray(fwd.response(scenario, face, ang, quads), float)
         if r.shape != (len(quads),):
-            raise RuntimeError(f"forward model {model!r} returned {r.shape} values for "
-                               f"{len(quads)} readings")
+            raise RuntimeError(f"forward model {type(fwd).__name__} returned {r.shape} values "
+                               f"for {len(quads)} readings")
         v = r * current_a
         e1 = rng.standard_normal(len(v))
         e2 = rng.standard_normal(len(v))
@@ -249,5 +183,4 @@ def write_readings(df: pd.DataFrame, path: str | Path) -> Path:
     return target
 
 
-__all__ = ["COLUMNS", "MODELS", "register_model", "get_model", "simulate_drive",
-           "write_readings"]
+__all__ = ["COLUMNS", "ELECTRODE_RADIUS_M", "simulate_drive", "write_readings"]

@@ -105,7 +105,7 @@ def _task(config: dict[str, Any]) -> dict[str, Any]:
 
 def _peak_rss_mb() -> float:
     """Peak resident memory of this process, MB (NaN where unknown)."""
-    try:
+    try:  # POSIX only: imported where it is used
         import resource
     except ImportError:  # pragma: no cover - not on POSIX
         return float("nan")
@@ -207,6 +207,7 @@ def _unit(name: str) -> str:
 
 def _run_tasks(configs: list[dict[str, Any]], *, client: Any | None, scheduler: str | None,
                serial: bool, progress: bool) -> list[dict[str, Any]]:
+    # late: the progress bar and dask.distributed (heavy, a cluster) load only for a sweep
     from tqdm.auto import tqdm
 
     if serial:

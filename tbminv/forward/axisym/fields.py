@@ -325,7 +325,7 @@ def _factorize(a: sp.spmatrix) -> Any:
     a = sp.csc_matrix(a)
     if HAVE_CHOLMOD:
         return _cholmod_cholesky(a)
-    from scipy.sparse.linalg import splu
+    from scipy.sparse.linalg import splu  # late: the fallback when CHOLMOD is missing
 
     lu = splu(a, permc_spec="MMD_AT_PLUS_A")
     return lu.solve

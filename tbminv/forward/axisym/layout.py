@@ -13,51 +13,11 @@ import numpy as np
 from tbminv.forward.axisym.fields import AxElectrode, AxisymSettings, _warn_once
 from tbminv.forward.axisym.mesh import CylGeometry, CylMesh
 from tbminv.forward.axisym.solver import AxisymSolver
+from tbminv.forward.quadrupoles import Quadrupoles, as_measurements, quadrupole_terms
+from tbminv.ground import Scenario
+from tbminv.layout import Layout
 
 _LOG = logging.getLogger(__name__)
-_WARNED: set[tuple] = set()
-
-
-
-# --------------------------------------------------------------------------- quadrupoles
-def quadrupole_terms(measurements: Sequence[Any], infinity: set[str]) -> list[list[tuple]]:
-    """Signed (source, receiver) pairs of every quadrupole ``R = (V_M - V_N) / I``.
-
-    Parameters
-    ----------
-    measurements : sequence of objects with ``a, b, m, n`` labels (b / n may be None)
-    infinity : set of str
-        Labels at infinity (their terms vanish).
-
-    Returns
-    -------
-    list of list of (sign, source, receiver)
-    """
-    out = []
-    for q in measurements:
-        terms = []
-        for cur, sc in ((q.a, 1.0), (q.b, -1.0)):
-            if cur is None or cur in infinity:
-                continue
-            for pot, sp_ in ((q.m, 1.0), (q.n, -1.0)):
-                if pot is None or pot in infinity:
-                    continue
-                terms.append((sc * sp_, cur, pot))
-        out.append(terms)
-    return out
-
-
-def _as_measurements(items: Sequence[Any]) -> list[Any]:
-    from tbminv.layout import Measurement
-
-    out = []
-    for q in items:
-        if isinstance(q, Measurement):
-            out.append(q)
-        else:
-            a, b, m, n = (None if (x is None or x == "") else str(x) for x in tuple(q)[:4])
-            out.append(Measurement(a=a, b=b, m=m, n=n))
-    return out
 
 
 class AxisymLayoutSolver:
@@ -73,6 +33,10 @@ class AxisymLayoutSolver:
     settings : AxisymSettings, optional
     extra_x : sequence of float
         More mesh lines across the axis (machine frame), m.
+    measurements : sequence of Measurement or (a, b, m, n), optional
+        Quadrupoles (default: the layout's protocol; reciprocals allowed).
+    extra_r : sequence of float
+        More mesh lines along the axis (radii), m.
 
     Notes
     -----
@@ -83,7 +47,7 @@ class AxisymLayoutSolver:
 
     def __init__(self, layout: Any, cutterhead_deg: float = 0.0,
                  face_chainage_m: float | None = None, settings: AxisymSettings | None = None,
-                 extra_x: Sequence[Any] = (), measurements: Sequence[Any] | None = None,
+                 extra_x: Sequence[Any] = (), measurements: Quadrupoles | None = None,
                  extra_r: Sequence[Any] = ()) -> None:
         self.layout = layout
         self.cutterhead_deg = float(cutterhead_deg)
@@ -93,7 +57,8 @@ class AxisymLayoutSolver:
             _warn_once(("cover", layout.source, tun.cover_m),
                        "%s: the ground surface (cover %.1f m) is not axisymmetric; the "
                        "axisymmetric model treats the ground as a full space (the drive "
-                       "inversion divides readings by a 3D surface factor, tbminv.surface)",
+                       "inversion divides readings by a 3D surface factor, "
+                       "tbminv.forward.ratio)",
                        layout.source, tun.cover_m)
         geo = CylGeometry(
             machine_radius_m=mach.radius_m if mach.model_body else None,
@@ -102,10 +67,9 @@ class AxisymLayoutSolver:
             tunnel_radius_m=mach.radius_m)
         if not mach.model_body and tun.model_cavity:
             geo = replace(geo, shield_length_m=0.0)
-        self.measurements = list(layout.measurements if measurements is None
-                                 else _as_measurements(measurements))
+        self.measurements = as_measurements(layout, measurements)
         used = {lab for q in self.measurements for lab in q.labels() if lab is not None}
-        cyl = layout.positions_cylindrical(cutterhead_deg, face_chainage_m)
+        cyl = layout.positions_cylindrical(face_chainage_m, cutterhead_deg)
         els = []
         for lab in layout.labels:
             if lab not in used:
@@ -147,7 +111,7 @@ class AxisymLayoutSolver:
     def _thetas(self, cutterhead_deg: float | None) -> dict[str, float] | None:
         if cutterhead_deg is None or cutterhead_deg == self.cutterhead_deg:
             return None
-        cyl = self.layout.positions_cylindrical(cutterhead_deg, self.face_chainage_m)
+        cyl = self.layout.positions_cylindrical(self.face_chainage_m, cutterhead_deg)
         return {lab: v[2] for lab, v in cyl.items() if v is not None}
 
     def ground_resistivity(self, scenario: Any, face_chainage_m: float,
@@ -230,58 +194,38 @@ class AxisymLayoutSolver:
 
 
 class AxisymModel:
-    """Forward model ``axisym`` for the model registry (:mod:`tbminv.models`).
+    """Forward model ``axisym`` of the registry (:mod:`tbminv.forward.registry`).
 
     Builds one :class:`AxisymLayoutSolver` per set of electrode positions in the machine frame
-    (the same for every advance unless electrodes are fixed in the ground) and caches it.
+    (the same for every advance unless electrodes are fixed in the ground) and quadrupole list,
+    and caches it.
     """
 
-    def __init__(self, layout: Any, settings: AxisymSettings | None = None, **_: Any) -> None:
+    def __init__(self, layout: Layout, settings: AxisymSettings | None = None, **_: Any) -> None:
         self.layout = layout
         self.settings = settings or AxisymSettings()
         self._cache: dict[tuple, AxisymLayoutSolver] = {}
 
-    def model_for(self, face_chainage_m: float, cutterhead_deg: float = 0.0) -> AxisymLayoutSolver:
-        """The (cached) axisymmetric model for a face chainage."""
-        cyl = self.layout.positions_cylindrical(cutterhead_deg, face_chainage_m)
-        key = tuple(sorted((k, round(v[0], 9), round(v[1], 9)) for k, v in cyl.items()
-                           if v is not None))
+    def model_for(self, face_chainage_m: float, cutterhead_deg: float = 0.0,
+                  measurements: Quadrupoles | None = None) -> AxisymLayoutSolver:
+        """The (cached) axisymmetric model of ``measurements`` (default the protocol)."""
+        quads = as_measurements(self.layout, measurements)
+        cyl = self.layout.positions_cylindrical(face_chainage_m, cutterhead_deg)
+        key = (tuple(sorted((k, round(v[0], 9), round(v[1], 9)) for k, v in cyl.items()
+                            if v is not None)),
+               tuple(q.labels() for q in quads))
         if key not in self._cache:
             if len(self._cache) > 8:
                 self._cache.clear()
             self._cache[key] = AxisymLayoutSolver(self.layout, cutterhead_deg, face_chainage_m,
-                                            self.settings)
+                                                  self.settings, measurements=quads)
         return self._cache[key]
 
-    def response(self, scenario: Any, face_chainage_m: float,
-                 cutterhead_deg: float = 0.0) -> np.ndarray:
-        """Transfer resistances of the layout's protocol, ohm."""
-        model = self.model_for(face_chainage_m, cutterhead_deg)
+    def response(self, scenario: Scenario, face_chainage_m: float, cutterhead_deg: float = 0.0,
+                 measurements: Quadrupoles | None = None) -> np.ndarray:
+        """Transfer resistances of ``measurements`` (default the protocol), ohm."""
+        model = self.model_for(face_chainage_m, cutterhead_deg, measurements)
         return model.response_scenario(scenario, face_chainage_m, cutterhead_deg)
 
 
-_SIM_CACHE: dict[tuple, AxisymLayoutSolver] = {}
-
-
-def simulate_model(layout: Any, scenario: Any, face_chainage_m: float, cutterhead_deg: float,
-                   measurements: Sequence[Any]) -> np.ndarray:
-    """Transfer resistances (ohm) of quadrupoles ``(a, b, m, n)`` for one face chainage.
-
-    The signature of :data:`tbminv.simulate.MODELS` entries; models are cached per layout,
-    electrode positions and quadrupole list.
-    """
-    quads = _as_measurements(measurements)
-    cyl = layout.positions_cylindrical(cutterhead_deg, face_chainage_m)
-    key = (id(layout), tuple(sorted((k, round(v[0], 9), round(v[1], 9))
-                                    for k, v in cyl.items() if v is not None)),
-           tuple(q.labels() for q in quads))
-    model = _SIM_CACHE.get(key)
-    if model is None:
-        if len(_SIM_CACHE) > 8:
-            _SIM_CACHE.clear()
-        model = _SIM_CACHE[key] = AxisymLayoutSolver(layout, cutterhead_deg, face_chainage_m,
-                                               measurements=quads)
-    return model.response_scenario(scenario, face_chainage_m, cutterhead_deg)
-
-
-__all__ = ["quadrupole_terms", "AxisymLayoutSolver", "AxisymModel", "simulate_model"]
+__all__ = ["AxisymLayoutSolver", "AxisymModel"]

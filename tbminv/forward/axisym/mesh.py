@@ -19,6 +19,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from tbminv.forward.grading import graded_nodes
 from tbminv.gimli import pg
 
 _LOG = logging.getLogger(__name__)
@@ -145,23 +146,7 @@ def graded_axis(key_points: Iterable[float | tuple[float, float]], lo: float, hi
     ends = [lo, *kt, hi]
     nodes = [lo]
     for a, b in zip(ends[:-1], ends[1:]):
-        pts = [a]
-        t = a
-        while True:
-            t_next = t + spacing(t)
-            if t_next >= b:
-                if (t_next - b) < (b - t) or len(pts) == 1:
-                    pts.append(t_next)
-                break
-            pts.append(t_next)
-            t = t_next
-        pts_a = np.asarray(pts)
-        n = len(pts_a) - 1
-        if n < min_cells:
-            pts_a = np.linspace(a, b, min_cells + 1)
-        else:
-            pts_a = a + (pts_a - a) * (b - a) / (pts_a[-1] - a)
-        nodes.extend(pts_a[1:])
+        nodes.extend(graded_nodes(a, b, spacing, end="fit", min_cells=min_cells)[1:])
     out = np.asarray(nodes)
     out[-1] = hi
     return out

@@ -24,6 +24,7 @@ from tbminv.forward.axisym.fields import (
     primary_harmonics,
 )
 from tbminv.forward.axisym.mesh import CylGeometry, build_cylmesh
+from tbminv.gimli import pg
 
 _LOG = logging.getLogger(__name__)
 _WARNED: set[tuple] = set()
@@ -323,8 +324,6 @@ class AxisymSolver:
             ids = (np.arange(cm.nr)[:, None] * nx + moved[None, :]).ravel()
             self._primary[e.label][:, ids] = cols
         pgm = cm.mesh
-        from tbminv.gimli import pg
-
         for ix in moved:
             for ir in range(cm.nr):
                 pgm.node(int(ir * nx + ix)).setPos(pg.Pos(float(target[ix]), float(cm.r[ir])))
@@ -417,7 +416,7 @@ class AxisymSolver:
         key = min(m, 1)
         sym = self._symbolic.get(key)
         if sym is None:
-            from sksparse.cholmod import analyze
+            from sksparse.cholmod import analyze  # optional: HAVE_CHOLMOD checked above
 
             sym = self._symbolic[key] = analyze(a_red)
         return sym.cholesky(a_red)

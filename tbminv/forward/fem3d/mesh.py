@@ -1,7 +1,7 @@
 """Tunnel-aware 3D tetrahedral meshes in the machine frame (tetgen through our own PLC writer).
 
-The mesh lives in the machine frame of DESIGN §2: ``x`` = ahead of the cutterhead face (0 at the
-face, negative behind), ``y`` to the left, ``z`` up, 0 on the tunnel axis. It holds
+The mesh lives in the machine frame (DEVELOPERS.md, "Conventions"): ``x`` = ahead of the cutterhead
+face (0 at the face, negative behind), ``y`` to the left, ``z`` up, 0 on the tunnel axis. It holds
 
 * a box of ground (``ground``): ``±box_m`` ahead/behind, sideways and down; the top is the ground
   surface at ``z = radius + cover_m`` for a finite cover (homogeneous Neumann), else ``+box_m``.
@@ -41,6 +41,7 @@ from typing import Any
 import numpy as np
 
 from tbminv.cache import atomic_path, atomic_write_text, cache_dir, cache_key
+from tbminv.forward.grading import graded_nodes
 from tbminv.gimli import pg
 
 _LOG = logging.getLogger(__name__)
@@ -239,14 +240,7 @@ def _cylinder_intervals(g: TunnelGeometry, x_end: float) -> list[tuple[float, fl
 
 def _graded(start: float, first: float, growth: float, stop: float) -> list[float]:
     """Offsets start+first, +first*growth, ... up to stop (exclusive)."""
-    out, x, h = [], start, first
-    while True:
-        x += h
-        if x >= stop - 0.5 * h:
-            break
-        out.append(x)
-        h *= growth
-    return out
+    return graded_nodes(start, stop, first, growth, end="open")[1:].tolist()
 
 
 def _build_plc(g: TunnelGeometry, points: dict[str, np.ndarray], planes: tuple[float, ...],

@@ -1,11 +1,11 @@
 """3D forward model of a layout in a ground scenario (pyGIMLi ERT on a tunnel-aware mesh).
 
-For one face chainage and cutterhead angle the machine-frame mesh of :mod:`tbminv.mesh3d` is
-filled cell by cell and pyGIMLi's finite-element DC solver (``DCMultiElectrodeModelling``, no
-singularity removal, which is inaccurate next to the very conductive steel) gives the potential
-of a unit current at every current electrode; transfer resistances of any quadrupole follow by
-superposition, ``R = u_A(M) - u_A(N) - u_B(M) + u_B(N)`` (V/A), a missing B or N (or a remote at
-infinity) contributing nothing.
+For one face chainage and cutterhead angle the machine-frame mesh of
+:mod:`tbminv.forward.fem3d.mesh` is filled cell by cell and pyGIMLi's finite-element DC solver
+(``DCMultiElectrodeModelling``, no singularity removal, which is inaccurate next to the very
+conductive steel) gives the potential of a unit current at every current electrode; transfer
+resistances of any quadrupole follow by superposition, ``R = u_A(M) - u_A(N) - u_B(M) + u_B(N)``
+(V/A), a missing B or N (or a remote at infinity) contributing nothing.
 
 Cell fill
     Ground cells take ``Scenario.resistivity`` at their centres (world frame). Contacts square to
@@ -51,7 +51,8 @@ from typing import Any
 import numpy as np
 
 from tbminv.forward.fem3d.mesh import MeshSettings, TunnelMesh, layout_mesh
-from tbminv.gimli import configure_operator, ert, pg
+from tbminv.forward.quadrupoles import Quadrupoles, quadrupole_labels
+from tbminv.gimli import configure_operator, ert, ert_data_container, pg
 from tbminv.ground import Scenario
 from tbminv.layout import Layout
 
@@ -73,7 +74,7 @@ class Fem3DSettings:
     mesh : MeshSettings
         Mesh knobs.
     cache_meshes : bool
-        Read and write meshes in the mesh cache (:mod:`tbminv.mesh3d`).
+        Read and write meshes in the mesh cache (:mod:`tbminv.forward.fem3d.mesh`).
     use_reciprocity : bool
         Compute a reading from its potential pair as current pair when that needs fewer
         solves (reciprocity theorem); False solves for every current electrode as given.
@@ -110,24 +111,6 @@ class ForwardResult:
     tmesh: TunnelMesh
     n_nodes: int
     seconds: dict[str, float]
-
-
-def _quads(layout: Any, measurements: Sequence[Any] | None
-           ) -> list[tuple[str | None, str | None, str | None, str | None]]:
-    src = layout.measurements if measurements is None else measurements
-    out = []
-    for q in src:
-        t = tuple(q.labels()) if hasattr(q, "labels") else tuple(q)
-        if len(t) != 4:
-            raise ValueError(f"measurement {q!r}: expected (a, b, m, n)")
-        out.append(tuple(None if (v is None or v == "") else str(v) for v in t))
-    known = set(layout.labels)
-    for t in out:
-        for v in t:
-            if v is not None and v not in known:
-                raise ValueError(f"{layout.source}: measurement {t} names unknown electrode "
-                                 f"{v!r}; known: {', '.join(layout.labels)}")
-    return out
 
 
 def contact_planes(layout: Any, scenario: Any, face_chainage_m: float) -> tuple[float, ...]:
@@ -185,14 +168,11 @@ def unit_potentials(tmesh: TunnelMesh, rho_cells: np.ndarray, source_nodes: Sequ
     if dz:
         mesh.translate(pg.Pos(0.0, 0.0, dz))
     xyz = np.asarray(tmesh.mesh.positions())
-    data = pg.DataContainerERT()
-    for i in source_nodes:
-        p = xyz[int(i)]
-        data.createSensor(pg.Pos(p[0], p[1], p[2] + dz))
     ns = len(source_nodes)
-    for i in range(ns):
-        data.createFourPointData(data.size(), i, -1, (i + 1) % ns if ns > 1 else i, -1)
-    data.set("k", np.ones(data.size()))
+    # one pole-pole datum per source: the solve gives every source's potential field
+    data = ert_data_container(
+        [(xyz[int(i)][0], xyz[int(i)][1], xyz[int(i)][2] + dz) for i in source_nodes],
+        [(i, -1, (i + 1) % ns if ns > 1 else i, -1) for i in range(ns)])
     fop = ert.ERTModelling(sr=False)
     configure_operator(fop)
     fop.setData(data)
@@ -236,7 +216,7 @@ class Forward3D:
                            planes, use_cache=self.settings.cache_meshes)
 
     def run(self, scenario: Any, face_chainage_m: float, cutterhead_deg: float = 0.0,
-            measurements: Sequence[Any] | None = None) -> ForwardResult:
+            measurements: Quadrupoles | None = None) -> ForwardResult:
         """Transfer resistances of the protocol (or ``measurements``), V/A.
 
         Parameters
@@ -250,7 +230,7 @@ class Forward3D:
         measurements : sequence, optional
             Quadrupoles (``Measurement`` or (a, b, m, n) labels); default the layout's protocol.
         """
-        quads = _quads(self.layout, measurements)
+        quads = quadrupole_labels(self.layout, measurements)
         t0 = time.perf_counter()
         tm = self.mesh(scenario, face_chainage_m, cutterhead_deg)
         t1 = time.perf_counter()
@@ -306,7 +286,7 @@ class Forward3D:
 
 
 def forward3d(layout: Any, scenario: Any, face_chainage_m: float, cutterhead_deg: float = 0.0,
-              measurements: Sequence[Any] | None = None,
+              measurements: Quadrupoles | None = None,
               settings: Fem3DSettings | None = None) -> np.ndarray:
     """Transfer resistances (V/A) of a layout's protocol in a scenario; see :class:`Forward3D`."""
     return Forward3D(layout, settings).run(scenario, face_chainage_m, cutterhead_deg,
@@ -314,19 +294,26 @@ def forward3d(layout: Any, scenario: Any, face_chainage_m: float, cutterhead_deg
 
 
 class Model3D:
-    """pyGIMLi 3D finite elements (see :class:`tbminv.forward3d.Forward3D`)."""
+    """Forward model ``3d`` of the registry: pyGIMLi 3D finite elements (:class:`Forward3D`).
 
-    def __init__(self, layout: Layout, **opts: Any) -> None:
+    Parameters
+    ----------
+    layout : Layout
+    settings : Fem3DSettings, optional
+        Default: P2 on the default mesh.
+    """
+
+    def __init__(self, layout: Layout, settings: Fem3DSettings | None = None, **_: Any) -> None:
         self.layout = layout
-        self.forward = Forward3D(layout, opts.get("settings"))
-        self.settings = opts.get("settings")
+        self.forward = Forward3D(layout, settings)
+        self.settings = self.forward.settings
 
-    def response(self, scenario: Scenario, face_chainage_m: float,
-                 cutterhead_deg: float = 0.0) -> np.ndarray:
-        """Transfer resistances, ohm."""
-        return np.asarray(self.forward.run(scenario, face_chainage_m, cutterhead_deg).r_ohm,
-                          float)
+    def response(self, scenario: Scenario, face_chainage_m: float, cutterhead_deg: float = 0.0,
+                 measurements: Quadrupoles | None = None) -> np.ndarray:
+        """Transfer resistances of ``measurements`` (default the protocol), ohm."""
+        return np.asarray(self.forward.run(scenario, face_chainage_m, cutterhead_deg,
+                                           measurements).r_ohm, float)
 
 
 __all__ = ["Model3D", "Fem3DSettings", "ForwardResult", "Forward3D", "forward3d",
-           "cell_resistivity",           "contact_planes", "unit_potentials"]
+           "cell_resistivity", "contact_planes", "unit_potentials"]

@@ -9,6 +9,8 @@ from typing import Any
 
 import numpy as np
 
+from tbminv.forward.registry import ForwardModel
+from tbminv.inversion.drive import DriveInverter
 from tbminv.inversion.settings import InversionSettings
 from tbminv.layout import Layout
 from tbminv.studies.methods.synthetic import (
@@ -20,16 +22,16 @@ from tbminv.studies.methods.synthetic import (
 )
 
 _LOG = logging.getLogger(__name__)
+
+
 # ------------------------------------------------------------------------ (a) axisymmetric
 def drive_inverter(layout: Layout, settings: InversionSettings | None = None,
-                   model: Any | None = None) -> Any:
-    """A :class:`tbminv.invert.DriveInverter` for a layout.
+                   model: ForwardModel | None = None) -> DriveInverter:
+    """A :class:`tbminv.inversion.drive.DriveInverter` for a layout.
 
     Its contact table uses the sub-protocol of the electrodes that travel with the machine, on a
     model built for that sub-protocol.
     """
-    from tbminv.inversion.drive import DriveInverter
-
     return DriveInverter(layout, settings, model=model)
 
 
@@ -37,9 +39,9 @@ def image_contact(res: Any, layout: Layout, *, ahead_max_m: float | None = None,
                   min_contrast: float = 1.25) -> float:
     """Equivalent sharp contact of an axisymmetric image along the axis, m ahead of the face.
 
-    ``res`` is a :class:`tbminv.section.AdvanceResult`; the profile is the image column nearest
-    the axis from the face to ``ahead_max_m`` (default 5 D); the face-side value is the median of
-    the ground beside the shield (one radius outside it).
+    ``res`` is a :class:`tbminv.inversion.outcome.AdvanceResult`; the profile is the image
+    column nearest the axis from the face to ``ahead_max_m`` (default 5 D); the face-side value
+    is the median of the ground beside the shield (one radius outside it).
     """
     a = np.asarray(res.ahead_m, float)
     rad = np.asarray(res.radius_m, float)
@@ -55,8 +57,9 @@ def image_contact(res: Any, layout: Layout, *, ahead_max_m: float | None = None,
 
 
 def run_axisym(drive: SyntheticDrive, settings: InversionSettings | None = None, *,
-               model: Any | None = None, label: str = "default", error_floor: float = 0.0,
-               inverter: Any | None = None, distance: str = "contact") -> list[AdvanceRecord]:
+               model: ForwardModel | None = None, label: str = "default",
+               error_floor: float = 0.0, inverter: DriveInverter | None = None,
+               distance: str = "contact") -> list[AdvanceRecord]:
     """Method ``axisym``: image inversion + contact fit along the drive.
 
     Parameters

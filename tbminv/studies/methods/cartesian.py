@@ -8,8 +8,18 @@ from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
+from scipy.spatial import cKDTree
 
-from tbminv.ground import Scenario
+from tbminv.forward.cartesian25d import (
+    GROUND,
+    MACHINE,
+    TUNNEL,
+    Cartesian25DModel,
+    Cartesian25DSettings,
+)
+from tbminv.forward.ratio import geometric_factors
+from tbminv.forward.registry import ForwardModel
+from tbminv.gimli import configure_operator, ert, ert_data_container
 from tbminv.layout import Layout
 from tbminv.readings.advance import AdvanceData
 from tbminv.studies.methods.region3d import model_3d
@@ -22,6 +32,8 @@ from tbminv.studies.methods.synthetic import (
 )
 
 _LOG = logging.getLogger(__name__)
+
+
 # ------------------------------------------------------------------------ (c) 2.5D section
 @dataclass(frozen=True)
 class Cartesian25DInversionSettings:
@@ -79,9 +91,7 @@ class Cartesian25DInverter:
     """
 
     def __init__(self, layout: Layout, settings: Cartesian25DInversionSettings | None = None,
-                 reference: Any | None = None) -> None:
-        from tbminv.forward.cartesian25d import Cartesian25DModel, Cartesian25DSettings
-
+                 reference: ForwardModel | None = None) -> None:
         self.layout = layout
         self.settings = settings or Cartesian25DInversionSettings()
         s = self.settings
@@ -92,31 +102,24 @@ class Cartesian25DInverter:
 
     def fit(self, adv: AdvanceData) -> dict[str, Any]:
         """Invert one advance; returns chi2, rrms, iterations, the axial profile and more."""
-        from tbminv.forward.cartesian25d import GROUND, MACHINE, TUNNEL
-        from tbminv.gimli import configure_operator, ert, pg
-
         s = self.settings
         face, ch = adv.face_chainage_m, adv.cutterhead_deg
         ratio = self.section.ratio(face, ch)
-        r2_hom = self.section.response_uncorrected(Scenario.homogeneous(s.rho_ref_ohmm), face, ch)
-        mesh, sensors, index = self.section._mesh(face, ch)
+        # the section's own numeric factors, k = rho_ref / R_2.5D(hom)
+        k2 = geometric_factors(self.layout, None, face, ch, s.rho_ref_ohmm,
+                               model=self.section.uncorrected())
         with np.errstate(divide="ignore", invalid="ignore"):
-            k2 = s.rho_ref_ohmm / r2_hom
             rhoa = k2 * adv.r_ohm / ratio
         sel = np.nonzero(np.isfinite(rhoa) & (rhoa > 0) & np.isfinite(k2)
                          & np.isfinite(adv.rel_error) & (adv.rel_error > 0))[0]
         if sel.size < 3:
             raise ValueError(f"advance {adv.advance}: {sel.size} usable readings")
-        data = pg.DataContainerERT()
-        for xy in sensors:
-            data.createSensor([float(xy[0]), float(xy[1])])
+        mesh, sensors, index = self.section._mesh(face, ch)
         quads = self.layout.measurements
-        for j, i in enumerate(sel):
-            abmn = [index.get(lab, -1) if lab is not None else -1 for lab in quads[i].labels()]
-            data.createFourPointData(j, *abmn)
-        data.set("k", pg.Vector(k2[sel]))
-        data.set("rhoa", pg.Vector(rhoa[sel]))
-        data.set("err", pg.Vector(adv.rel_error[sel]))
+        data = ert_data_container(
+            sensors, [[index.get(lab, -1) if lab is not None else -1
+                       for lab in quads[i].labels()] for i in sel],
+            {"k": k2[sel], "rhoa": rhoa[sel], "err": adv.rel_error[sel]})
         mgr = ert.ERTManager(sr=False, verbose=False)
         configure_operator(mgr.fop)
         mgr.setData(data)
@@ -140,8 +143,6 @@ class Cartesian25DInverter:
         length = s.profile_ahead_m or 5.0 * d
         a = np.linspace(0.05 * d, length, 60)
         # nearest parameter cell to each point on the axis ahead of the face
-        from scipy.spatial import cKDTree
-
         tree = cKDTree(centers)
         _, idx = tree.query(np.column_stack([a, np.full_like(a, yc)]))
         prof = np.log(model[idx])
@@ -163,13 +164,13 @@ class Cartesian25DInverter:
 
 def run_cartesian25d(drive: SyntheticDrive,
                      settings: Cartesian25DInversionSettings | None = None, *,
-                     reference: Any | None = None, label: str = "default",
+                     reference: ForwardModel | None = None, label: str = "default",
                      error_floor: float = 0.0, inverter: Cartesian25DInverter | None = None
                      ) -> list[AdvanceRecord]:
     """Method ``section25d``: pyGIMLi 2.5D section inversion of ratio-corrected data.
 
-    ``time_s`` is the wall time of each advance including the 3D homogeneous run of the ratio
-    correction (cached per electrode geometry).
+    ``time_s`` is the wall time of each advance including the homogeneous runs of the ratio
+    correction and the factors (cached, :mod:`tbminv.forward.ratio`).
     """
     data = with_error_floor(drive.data, error_floor)
     inv = inverter or Cartesian25DInverter(drive.layout, settings, reference)

@@ -7,10 +7,9 @@ from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
 from typing import Any
 
-import numpy as np
 import pandas as pd
 
-from tbminv.ground import Scenario
+from tbminv.forward.fem3d.model import Fem3DSettings, Model3D
 from tbminv.layout import Layout
 from tbminv.studies.methods.axisym import run_axisym
 from tbminv.studies.methods.cartesian import run_cartesian25d
@@ -18,6 +17,8 @@ from tbminv.studies.methods.region3d import run_region3d
 from tbminv.studies.methods.synthetic import METHODS, AdvanceRecord, SyntheticDrive, records_table
 
 _LOG = logging.getLogger(__name__)
+
+
 # ------------------------------------------------------------------------ comparison
 @dataclass(frozen=True)
 class MethodCase:
@@ -53,33 +54,16 @@ def compare(drives: SyntheticDrive | Sequence[SyntheticDrive], cases: Sequence[M
     return records_table(recs)
 
 
-# ------------------------------------------------------------------------ simulation hooks
-def _coarse3d_simulate(layout: Layout, scenario: Scenario, face_chainage_m: float,
-                       cutterhead_deg: float, measurements: Sequence[tuple]) -> np.ndarray:
-    """``simulate`` signature on pyGIMLi's 3D with the default mesh and P1 elements."""
-    from tbminv.forward.fem3d.model import Fem3DSettings, forward3d
+# ------------------------------------------------------------------------ simulation model
+def model_3d_p1(layout: Layout) -> Model3D:
+    """The model the comparison drives are simulated with: 3D, default mesh, P1 elements.
 
-    return forward3d(layout, scenario, face_chainage_m, cutterhead_deg, measurements,
-                     settings=Fem3DSettings(p2=False))
-
-
-def register_simulate_models() -> tuple[str, ...]:
-    """Register ``3d-p1`` in :data:`tbminv.simulate.MODELS` (idempotent).
-
-    ``3d-p1`` is the 3D model on its default mesh with linear elements (about 4 s per face
-    instead of about 20 s with P2; a few percent less accurate in absolute terms, which the
-    numeric geometric factors of every method absorb). ``section`` is registered by
-    :mod:`tbminv.simulate` itself.
-
-    Returns
-    -------
-    tuple of str
-        The registered names.
+    pyGIMLi's 3D model on its default mesh with linear elements (about 4 s per face instead of
+    about 20 s with P2; a few percent less accurate in absolute terms, which the numeric
+    geometric factors of every method absorb), on a mesh no inversion method uses. Pass it to
+    :func:`tbminv.studies.methods.synthetic.synthetic_drive` as ``model=``.
     """
-    from tbminv.studies.simulate import register_model
-
-    register_model("3d-p1", _coarse3d_simulate, replace=True)
-    return ("3d-p1",)
+    return Model3D(layout, Fem3DSettings(p2=False))
 
 
-__all__ = ["MethodCase", "compare", "register_simulate_models"]
+__all__ = ["MethodCase", "compare", "model_3d_p1"]

@@ -7,10 +7,13 @@ import math
 import time
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass
-from typing import Any
 
 import numpy as np
 
+from tbminv.forward.fem3d.mesh import MeshSettings
+from tbminv.forward.fem3d.model import Fem3DSettings, Model3D
+from tbminv.forward.ratio import geometric_factors
+from tbminv.forward.registry import ForwardModel
 from tbminv.ground import Contact, Scenario
 from tbminv.layout import Layout
 from tbminv.readings.advance import AdvanceData
@@ -23,11 +26,11 @@ from tbminv.studies.methods.synthetic import (
 )
 
 _LOG = logging.getLogger(__name__)
-# ------------------------------------------------------------------------ (b) region-wise 3D
-def coarse_mesh_settings() -> Any:
-    """A small 3D mesh for the region-wise method (P1, ~4k nodes, about 1 s per forward)."""
-    from tbminv.forward.fem3d.mesh import MeshSettings
 
+
+# ------------------------------------------------------------------------ (b) region-wise 3D
+def coarse_mesh_settings() -> MeshSettings:
+    """A small 3D mesh for the region-wise method (P1, ~4k nodes, about 1 s per forward)."""
     return MeshSettings(box_m=120.0, n_segments=8, quality=1.5, electrode_size_m=0.3,
                         face_size_m=1.5, growth=2.0, refine_ahead_m=20.0)
 
@@ -70,7 +73,7 @@ class Region3DSettings:
 
     boundaries_in_diameters: tuple[float, ...] = (0.0, 1.0, 2.5, 5.0)
     p2: bool = False
-    mesh: Any | None = None
+    mesh: MeshSettings | None = None
     lam: float = 0.1
     lambda_factor: float = 0.3
     smoothness: float = 30.0
@@ -91,19 +94,15 @@ class Region3DSettings:
                              "max_iter >= 1")
 
 
-def model_3d(layout: Layout, *, p2: bool = False, mesh: Any | None = None,
-             honour_contacts: bool = True) -> Any:
-    """The ``3d`` forward model (:class:`tbminv.models.Model3D`) with a small mesh.
+def model_3d(layout: Layout, *, p2: bool = False, mesh: MeshSettings | None = None,
+             honour_contacts: bool = True) -> Model3D:
+    """The ``3d`` forward model (:class:`tbminv.forward.fem3d.model.Model3D`) with a small mesh.
 
     ``honour_contacts = False`` keeps one mesh for every ground (contacts filled by cell
     centres).
     """
-    from tbminv.forward.fem3d.model import Fem3DSettings
-    from tbminv.forward.registry import make_model
-
-    fs = Fem3DSettings(p2=p2, mesh=mesh or coarse_mesh_settings(),
-                         honour_contacts=honour_contacts)
-    return make_model("3d", layout, settings=fs)
+    return Model3D(layout, Fem3DSettings(p2=p2, mesh=mesh or coarse_mesh_settings(),
+                                         honour_contacts=honour_contacts))
 
 
 def slab_scenario(face_chainage_m: float, boundaries_m: Sequence[float], rho_around: float,
@@ -207,11 +206,11 @@ class RegionInverter:
     layout : Layout
     settings : Region3DSettings, optional
     model : ForwardModel, optional
-        A 3D model with ``response(scenario, face, angle)`` (default: :func:`model_3d`).
+        A 3D model built for ``layout`` (default: :func:`model_3d`).
     """
 
     def __init__(self, layout: Layout, settings: Region3DSettings | None = None,
-                 model: Any | None = None) -> None:
+                 model: ForwardModel | None = None) -> None:
         self.layout = layout
         self.settings = settings or Region3DSettings()
         self.model = model or model_3d(layout, p2=self.settings.p2, mesh=self.settings.mesh,
@@ -224,11 +223,8 @@ class RegionInverter:
         """Fit one advance; returns the fit and the selected readings' indices."""
         s = self.settings
         face, ch = adv.face_chainage_m, adv.cutterhead_deg
-        r_hom = np.asarray(self.model.response(Scenario.homogeneous(rho_ref_ohmm), face, ch),
-                           float)
-        with np.errstate(divide="ignore", invalid="ignore"):
-            k = rho_ref_ohmm / r_hom
-            rhoa = k * adv.r_ohm
+        k = geometric_factors(self.layout, None, face, ch, rho_ref_ohmm, model=self.model)
+        rhoa = k * adv.r_ohm
         sel = np.nonzero(np.isfinite(rhoa) & (rhoa > 0) & np.isfinite(adv.rel_error)
                          & (adv.rel_error > 0))[0]
         if sel.size < 2:
@@ -267,12 +263,12 @@ class RegionInverter:
 
 
 def run_region3d(drive: SyntheticDrive, settings: Region3DSettings | None = None, *,
-                 model: Any | None = None, label: str = "default", error_floor: float = 0.0,
-                 rho_ref_ohmm: float = 100.0) -> list[AdvanceRecord]:
+                 model: ForwardModel | None = None, label: str = "default",
+                 error_floor: float = 0.0, rho_ref_ohmm: float = 100.0) -> list[AdvanceRecord]:
     """Method ``region3d``: slabs ahead + ground around the machine, Gauss-Newton on 3D.
 
-    ``time_s`` is the wall time of each advance (homogeneous run for the factors, Jacobians,
-    line search).
+    ``time_s`` is the wall time of each advance (the homogeneous run for the factors unless
+    cached, Jacobians, line search).
     """
     data = with_error_floor(drive.data, error_floor)
     inv = RegionInverter(drive.layout, settings, model)

@@ -1,27 +1,28 @@
 """Research comparison of forward geometries on one synthetic drive.
 
-Each method turns the same per-advance data (:class:`tbminv.invert.AdvanceData`) into one record
-per advance with the same fields (:data:`RECORD_COLUMNS`): the fitted distance from the face to
-the contact, its error against the known synthetic contact, chi-squared of the data fit and the
-wall time per advance. Methods (names in :data:`METHODS`):
+Each method turns the same per-advance data (:class:`tbminv.readings.advance.AdvanceData`) into
+one record per advance with the same fields (:data:`RECORD_COLUMNS`): the fitted distance from the
+face to the contact, its error against the known synthetic contact, chi-squared of the data fit
+and the wall time per advance. Methods (names in :data:`METHODS`):
 
 ``axisym``
     The toolkit's main chain: axisymmetric image inversion on the parameter grid, the machine and
     tunnel fixed, warm-started, followed by the parametric contact fit over a window of advances
-    (:class:`tbminv.invert.DriveInverter`). Distance: the contact fit.
+    (:class:`tbminv.inversion.drive.DriveInverter`). Distance: the contact fit.
 ``region3d``
     Coarse region-wise 3D: the ground ahead of the face split into a few slabs square to the axis
     plus the ground around the machine, one resistivity each, fitted by damped Gauss-Newton
     (Levenberg-Marquardt; Marquardt 1963, J. SIAM 11(2):431-441) in log resistivity, with a
-    smoothness term between neighbouring regions, and a
-    finite-difference Jacobian on pyGIMLi's 3D forward (:mod:`tbminv.forward3d`, a small P1
-    mesh, the same for every parameter vector; slab boundaries are filled by cell centres, as
+    smoothness term between neighbouring regions, and a finite-difference Jacobian on pyGIMLi's
+    3D forward (:mod:`tbminv.forward.fem3d.model`, a small P1 mesh, the same for every
+    parameter vector; slab boundaries are filled by cell centres, as
     facets across the whole box would multiply the nodes five-fold). Distance: the
     equivalent sharp contact of the slab profile (:func:`equivalent_contact`). Resolution is
     bounded by the slab thickness.
 ``section25d``
     A vertical Cartesian 2.5D section through the axis on pyGIMLi's own 2.5D ERT
-    (:class:`tbminv.section25d.Cartesian25DModel` meshes, :class:`pygimli.physics.ert.ERTManager`):
+    (:class:`tbminv.forward.cartesian25d.Cartesian25DModel` meshes,
+    :class:`pygimli.physics.ert.ERTManager`):
     the ground cells of the section are inverted with the machine and tunnel as fixed regions.
     Data are ratio-corrected (Fox et al. 1980, Geophysics 45(1):75-93): apparent resistivities
     ``rho_a = rho_ref R_obs / R_3D(hom)`` with the homogeneous response of the true 3D geometry,
@@ -46,15 +47,16 @@ import logging
 import math
 from collections.abc import Sequence
 from dataclasses import dataclass
-from pathlib import Path
-from typing import Any
 
 import numpy as np
 import pandas as pd
 
+from tbminv.forward.registry import ForwardModel
 from tbminv.ground import Scenario
 from tbminv.layout import Layout, Measurement
-from tbminv.readings.advance import AdvanceData
+from tbminv.readings.advance import AdvanceData, prepare_advances
+from tbminv.readings.qc import QCSettings
+from tbminv.studies.simulate import simulate_drive
 
 _LOG = logging.getLogger(__name__)
 
@@ -79,7 +81,7 @@ class SyntheticDrive:
     scenario : Scenario
         The ground the readings were simulated in.
     readings : pandas.DataFrame
-        The simulated readings log (DESIGN 3.2 columns).
+        The simulated readings log (:data:`tbminv.studies.simulate.COLUMNS`).
     data : list of AdvanceData
         QC'd readings per advance (normal and reciprocal merged, error model applied).
     contact_chainage_m : float
@@ -138,8 +140,8 @@ def compact_layout(layout: Layout, extra: Sequence[tuple] = COMPACT_EXTRA, *,
     -------
     Layout
         ``layout`` with ``explicit_measurements`` replaced and no generators; a remote at
-        infinity becomes a plain pole (None), as :func:`tbminv.invert.advance_data` matches
-        readings to the protocol with poles as None.
+        infinity becomes a plain pole (None), as :func:`tbminv.readings.advance.advance_data`
+        matches readings to the protocol with poles as None.
     """
     labels = set(layout.labels)
     inf = {e.label for e in layout.electrodes if e.at_infinity}
@@ -161,40 +163,29 @@ def first_contact_chainage(scenario: Scenario, after_m: float) -> float:
     return float(min(xs)) if xs else math.nan
 
 
-def _qc_data(readings: pd.DataFrame, layout: Layout, qc_settings: Any | None
+def _qc_data(readings: pd.DataFrame, layout: Layout, qc_settings: QCSettings | None
              ) -> list[AdvanceData]:
     """Readings log -> checked (reader, quarantine), QC'd, per-advance data."""
-    import tempfile
-
-    from tbminv.readings.advance import advance_data
-    from tbminv.readings.qc import QCSettings, run_qc
-    from tbminv.readings.reader import read_readings
-    from tbminv.studies.simulate import write_readings
-
     qs = qc_settings or QCSettings(error_model_group="log", min_pairs=8)
-    with tempfile.TemporaryDirectory(prefix="tbminv-methods-") as tmp:
-        path = write_readings(readings, Path(tmp) / "readings.csv")
-        checked = read_readings(path, layout)
-    if len(checked.quarantine):
-        _LOG.warning("%d simulated readings quarantined", len(checked.quarantine))
-    qc = run_qc(checked, qs)
-    return advance_data(qc.table, layout)
+    prepared = prepare_advances(readings, layout, qs, label="<simulated readings>")
+    return prepared.advances
 
 
 def synthetic_drive(layout: Layout, scenario: Scenario, faces_m: Sequence[float], *,
-                    model: str = "3d", noise_rel: float = 0.02, noise_abs_v: float = 1e-6,
-                    seed: int = 7, qc_settings: Any | None = None, name: str = "layout"
+                    model: str | ForwardModel = "3d", noise_rel: float = 0.02,
+                    noise_abs_v: float = 1e-6, seed: int = 7,
+                    qc_settings: QCSettings | None = None, name: str = "layout"
                     ) -> SyntheticDrive:
-    """Simulate a drive (:func:`tbminv.simulate.simulate_drive`), QC it and group it by advance.
+    """Simulate a drive (:func:`tbminv.studies.simulate.simulate_drive`), QC it, group it.
 
     Parameters
     ----------
     layout, scenario : Layout, Scenario
     faces_m : sequence of float
         Face chainages, m.
-    model : str
-        Simulation model in :data:`tbminv.simulate.MODELS` (see :func:`register_simulate_models`
-        for ``3d-coarse`` and ``section``).
+    model : str or ForwardModel
+        Simulation model: a registry name (``3d``, ``axisym``, ``section``, ``analytic``) or a
+        model built for ``layout`` (e.g. :func:`tbminv.studies.methods.compare.model_3d_p1`).
     noise_rel, noise_abs_v : float
         Gaussian noise, relative and in V.
     seed : int
@@ -205,8 +196,6 @@ def synthetic_drive(layout: Layout, scenario: Scenario, faces_m: Sequence[float]
     name : str
         Label of the layout in the comparison table.
     """
-    from tbminv.studies.simulate import simulate_drive
-
     readings = simulate_drive(layout, scenario, faces_m, model=model, noise_rel=noise_rel,
                               noise_abs_v=noise_abs_v, seed=seed)
     data = _qc_data(readings, layout, qc_settings)
