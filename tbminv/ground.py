@@ -17,7 +17,6 @@ from __future__ import annotations
 
 import dataclasses
 import math
-import tomllib
 from collections.abc import Mapping
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -27,6 +26,7 @@ import numpy as np
 import tomli_w
 
 from tbminv.cache import atomic_write_text
+from tbminv.tomlfile import read_toml
 
 
 class ScenarioError(ValueError):
@@ -329,16 +329,7 @@ def load_scenario(path: str | Path) -> Scenario:
         If the file cannot be read or parsed or fails validation (names file, table, key).
     """
     p = Path(path)
-    try:
-        text = p.read_bytes().decode("utf-8-sig")
-    except FileNotFoundError:
-        raise ScenarioError(f"{p}: ground scenario file not found") from None
-    except UnicodeDecodeError as exc:
-        raise ScenarioError(f"{p}: not UTF-8 text ({exc}); expected a TOML scenario") from None
-    try:
-        data = tomllib.loads(text)
-    except tomllib.TOMLDecodeError as exc:
-        raise ScenarioError(f"{p}: not valid TOML ({exc})") from None
+    data = read_toml(p, ScenarioError, "ground scenario file")
     return Scenario.from_dict(data, source=str(p))
 
 

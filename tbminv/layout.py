@@ -16,7 +16,6 @@ from __future__ import annotations
 import dataclasses
 import math
 import re
-import tomllib
 from collections.abc import Iterable, Mapping
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -26,6 +25,7 @@ import numpy as np
 import tomli_w
 
 from tbminv.cache import atomic_write_text
+from tbminv.tomlfile import read_toml
 
 ELECTRODE_KINDS = ("cutterhead", "shield", "wall", "remote", "machine")
 PROTOCOL_GENERATORS = ("pole-pole", "machine-pole", "cutterhead-dipole")
@@ -641,22 +641,7 @@ def load_layout(path: str | Path) -> Layout:
         If the file cannot be read or parsed, or fails validation (names file, table, key).
     """
     p = Path(path)
-    try:
-        text = p.read_bytes().decode("utf-8-sig")
-    except FileNotFoundError:
-        raise LayoutError(f"{p}: layout file not found") from None
-    except UnicodeDecodeError as exc:
-        raise LayoutError(f"{p}: not UTF-8 text ({exc}); expected a TOML layout file") from None
-    try:
-        data = tomllib.loads(text)
-    except tomllib.TOMLDecodeError as exc:
-        relaxed = _split_semicolon_pairs(text)
-        try:
-            data = tomllib.loads(relaxed) if relaxed != text else None
-        except tomllib.TOMLDecodeError:
-            data = None
-        if data is None:
-            raise LayoutError(f"{p}: not valid TOML ({exc})") from None
+    data = read_toml(p, LayoutError, "layout file", relaxed=_split_semicolon_pairs)
     return Layout.from_dict(data, source=str(p))
 
 

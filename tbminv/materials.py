@@ -25,13 +25,14 @@ from __future__ import annotations
 import csv
 import logging
 import math
-import tomllib
 from collections.abc import Iterable
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
 import numpy as np
+
+from tbminv.tomlfile import read_toml
 
 _LOG = logging.getLogger(__name__)
 
@@ -230,10 +231,7 @@ def load_material_table(path: str | Path) -> MaterialTable:
         raise MaterialTableError(f"{p}: material table not found")
     classes: list[MaterialClass] = []
     if p.suffix.lower() == ".toml":
-        try:
-            doc = tomllib.loads(p.read_text(encoding="utf-8"))
-        except tomllib.TOMLDecodeError as exc:
-            raise MaterialTableError(f"{p}: not valid TOML ({exc})") from None
+        doc = read_toml(p, MaterialTableError, "material table")
         rows = doc.get("material")
         if not isinstance(rows, list) or not rows:
             raise MaterialTableError(f"{p}: no [[material]] tables")

@@ -17,7 +17,7 @@ PACKAGE = Path(__file__).resolve().parents[1] / "tbminv"
 
 #: layer of each top-level module or sub-package (low to high), as in DEVELOPERS.md
 LAYERS = {
-    "gimli": 0, "cache": 0, "__init__": 0,
+    "gimli": 0, "cache": 0, "tomlfile": 0, "__init__": 0,
     "layout": 1, "ground": 1, "materials": 1,
     "readings": 2, "forward": 2,
     "inversion": 3,

@@ -4,13 +4,13 @@ from __future__ import annotations
 
 import dataclasses
 import logging
-import tomllib
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
 from tbminv.inversion.contactfit import ContactFitSettings
 from tbminv.readings.qc import QCSettings
+from tbminv.tomlfile import read_toml
 
 _LOG = logging.getLogger(__name__)
 
@@ -134,12 +134,7 @@ def load_settings(path: str | Path | None) -> tuple[InversionSettings, QCSetting
     if path is None:
         return InversionSettings(), QCSettings()
     p = Path(path)
-    try:
-        data = tomllib.loads(p.read_text(encoding="utf-8-sig"))
-    except FileNotFoundError:
-        raise InversionError(f"{p}: settings file not found") from None
-    except (UnicodeDecodeError, tomllib.TOMLDecodeError) as exc:
-        raise InversionError(f"{p}: not a valid TOML settings file ({exc})") from None
+    data = read_toml(p, InversionError, "settings file")
     unknown = set(data) - {"invert", "contact", "qc", "ahead", "section"}
     if unknown:
         raise InversionError(f"{p}: unknown table(s) {', '.join(sorted(unknown))}; expected "

@@ -35,7 +35,6 @@ import enum
 import logging
 import math
 import os
-import tomllib
 import warnings
 from collections.abc import Mapping
 from dataclasses import asdict, dataclass, fields
@@ -48,6 +47,7 @@ from scipy.optimize import nnls
 
 from tbminv.gimli import ert
 from tbminv.readings.reader import LABEL_COLUMNS, Readings
+from tbminv.tomlfile import read_toml
 
 _LOG = logging.getLogger(__name__)
 
@@ -210,11 +210,7 @@ class QCSettings:
     def from_toml(cls, path: str | os.PathLike[str]) -> QCSettings:
         """Settings from the ``[qc]`` table of a TOML file (defaults if the table is absent)."""
         path = Path(path)
-        try:
-            with open(path, "rb") as fh:
-                doc = tomllib.load(fh)
-        except (OSError, tomllib.TOMLDecodeError) as exc:
-            raise QCError(f"{path}: cannot read settings ({exc}); expected a TOML file") from None
+        doc = read_toml(path, QCError, "settings file")
         table = doc.get("qc", {})
         if not isinstance(table, dict):
             raise QCError(f"{path}: [qc] must be a table")

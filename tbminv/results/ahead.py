@@ -38,7 +38,6 @@ from __future__ import annotations
 import dataclasses
 import logging
 import math
-import tomllib
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -47,6 +46,7 @@ import numpy as np
 import xarray as xr
 
 from tbminv.results.section import axis_median_log10, clean_advances
+from tbminv.tomlfile import read_toml
 
 _LOG = logging.getLogger(__name__)
 
@@ -124,10 +124,7 @@ class AheadSettings:
     def from_toml(cls, path: str | Path) -> AheadSettings:
         """Read the ``[ahead]`` table of a settings file (defaults where it is absent)."""
         p = Path(path)
-        try:
-            doc = tomllib.loads(p.read_text(encoding="utf-8"))
-        except (OSError, tomllib.TOMLDecodeError) as exc:
-            raise AheadSettingsError(f"{p}: cannot read settings ({exc})") from None
+        doc = read_toml(p, AheadSettingsError, "settings file")
         tbl = doc.get("ahead", {})
         if not isinstance(tbl, dict):
             raise AheadSettingsError(f"{p}: [ahead] must be a table")

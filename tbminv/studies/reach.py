@@ -17,7 +17,6 @@ from __future__ import annotations
 import dataclasses
 import logging
 import time
-import tomllib
 from collections.abc import Mapping
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -29,6 +28,7 @@ import xarray as xr
 from tbminv.forward.registry import ForwardModel, make_model
 from tbminv.ground import Contact, Scenario, Sphere
 from tbminv.layout import Layout
+from tbminv.tomlfile import read_toml
 
 _LOG = logging.getLogger(__name__)
 
@@ -296,10 +296,7 @@ def load_sweep(path: str | Path) -> tuple[dict[str, list[float]], dict[str, Any]
     ``k``, ``model``, ``target``, ``background_ohmm``.
     """
     p = Path(path)
-    try:
-        data = tomllib.loads(p.read_text(encoding="utf-8-sig"))
-    except (OSError, UnicodeDecodeError, tomllib.TOMLDecodeError) as exc:
-        raise ValueError(f"{p}: cannot read sweep file ({exc})") from None
+    data = read_toml(p, ValueError, "sweep file")
     sweep = data.get("sweep")
     if not isinstance(sweep, dict) or not sweep:
         raise ValueError(f"{p}: [sweep] table missing; expected e.g. diameter_m = [4.0, 6.0]")
