@@ -12,13 +12,13 @@ import subprocess
 import numpy as np
 import pytest
 from pypdf import PdfReader
-from test_section import make_section
 
 import tbminv
 from tbminv.cli import main
 from tbminv.plots import section as figures
 from tbminv.report import write_report
 from tbminv.results.store import append_shift, open_section
+from tests.helpers import make_section
 
 
 @pytest.fixture(scope="module")

@@ -4,9 +4,9 @@ from __future__ import annotations
 
 import pytest
 from matplotlib.figure import Figure
-from test_section import make_section
 
 from tbminv.widgets import SectionExplorer, explore
+from tests.helpers import make_section
 
 
 @pytest.fixture(scope="module")

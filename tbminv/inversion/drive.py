@@ -47,8 +47,12 @@ from typing import Any
 import numpy as np
 
 from tbminv.cache import cache_key
-from tbminv.forward.ratio import needs_correction, surface_factors
-from tbminv.forward.registry import make_model
+from tbminv.forward.ratio import (
+    geometric_factors_from_response,
+    needs_correction,
+    surface_factors,
+)
+from tbminv.forward.registry import make_model, model_options_for
 from tbminv.inversion.contactfit import ContactFitter, build_response_table
 from tbminv.inversion.grid import build_parameter_grid
 from tbminv.inversion.image import ImageResult, invert_image, shift_model
@@ -87,8 +91,6 @@ class DriveInverter:
             raise InversionError(f"image inversion needs the axisym model, not "
                                  f"{self.settings.model!r}")
         if model is None:
-            from tbminv.forward.registry import model_options_for
-
             model = make_model("axisym", layout,
                                **model_options_for("axisym", self.settings.forward_settings))
         self.model = model
@@ -114,8 +116,6 @@ class DriveInverter:
 
     def geometric_factors(self, face: float, ch: float, rho_ref: float) -> np.ndarray:
         """Numeric geometric factors k = rho_ref / R_hom per protocol quadrupole, m."""
-        from tbminv.forward.ratio import geometric_factors_from_response
-
         key = (*self._op_key(face, ch), round(ch, 6), rho_ref)
         if key not in self._k:
             op = self.operator(face, ch)

@@ -15,7 +15,7 @@ Cell fill
     enough near them** (cell-centre sampling). Machine cells (``cutterhead``, ``shield``) take the
     capped steel resistivity ``layout.machine.body_resistivity_ohmm`` (default 1e-5 ohm-m;
     steel is about 1e-7): the transfer resistances change by less than 0.1 % between caps of
-    1e-3 and 1e-6 ohm-m (``tests/test_forward3d.py``), so the cap no longer matters there.
+    1e-3 and 1e-6 ohm-m (``tests/forward/test_fem3d_model.py``), so the cap no longer matters there.
     Tunnel cells take ``layout.tunnel.lining_resistivity_ohmm``. ``model_body`` /
     ``model_cavity`` = false leave these regions out (ground instead).
 
@@ -29,7 +29,7 @@ Cost
     The solve dominates and grows faster than linearly with the unknowns (P2 nodes); extra
     current electrodes cost little. With ``use_reciprocity`` (default) each reading is computed
     from whichever of its pairs (AB or MN) needs fewer current electrodes; reciprocity holds to
-    < 0.5 % when both are solved (``tests/test_forward3d.py``).
+    < 0.5 % when both are solved (``tests/forward/test_fem3d_model.py``).
 
 Accuracy
     Quadratic elements (P2, default) on the P1 mesh: about 0.1-0.3 % against closed forms in a

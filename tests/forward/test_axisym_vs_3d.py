@@ -1,24 +1,19 @@
 """The axisymmetric model against pyGIMLi's 3D model with the steel machine and the bore in.
 
 No closed form exists with the machine in; the reference is the 3D finite-element model (P2,
-default mesh, itself checked against closed forms in test_forward3d.py). Both must agree within
-2 % on every reading of a layout with cutterhead, shield and steel electrodes, for homogeneous
-ground and for contacts ahead (measured here: 0.3-0.6 % max).
+default mesh, itself checked against closed forms in tests/forward/test_fem3d_model.py). Both
+must agree within 2 % on every reading of a layout with cutterhead, shield and steel electrodes,
+for homogeneous ground and for contacts ahead (measured here: 0.3-0.6 % max).
 """
 
 from __future__ import annotations
-
-import sys
-from pathlib import Path
 
 import numpy as np
 import pytest
 
 from tbminv.forward.registry import make_model
 from tbminv.ground import Contact, Scenario
-
-sys.path.insert(0, str(Path(__file__).parent / "data"))
-from make_drive_fixtures import fixture_layout  # noqa: E402
+from tests.helpers import fixture_layout
 
 
 @pytest.mark.slow

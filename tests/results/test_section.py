@@ -7,7 +7,6 @@ import os
 import signal
 import subprocess
 import sys
-import textwrap
 import time
 from pathlib import Path
 from types import SimpleNamespace
@@ -28,75 +27,9 @@ from tbminv.results.section import (
     world_view,
 )
 from tbminv.results.store import append_shift, open_section
+from tests.helpers import LAYOUT_TEXT, SETTINGS_TEXT, make_results, make_section
 
-LAYOUT_TEXT = textwrap.dedent("""\
-    [machine]
-    diameter_m = 6.0
-    shield_length_m = 9.0
-    cutterhead_thickness_m = 1.0
-    """)
-SETTINGS_TEXT = "[invert]\nlambda = 20.0\n"
-ROOT = Path(__file__).resolve().parents[1]
-
-
-def make_results(advances=range(5), *, first_face_m=1200.0, step_m=1.5, rho_around=80.0,
-                 rho_beyond=None, contact_chainage_m=1230.0, artefact_ahead_m=None,
-                 artefact_factor=5.0, artefact_shape="bump", noise_log10=0.0, seed=0,
-                 with_contact_fit=True, flagged=(), radius_m=3.0, doi=False):
-    """Invented per-advance results: smooth step at a fixed chainage, coverage fading ahead.
-
-    rho_beyond=None: homogeneous ground. artefact_ahead_m: a blob that travels with the
-    machine at that distance ahead (what an artefact looks like).
-    """
-    rng = np.random.default_rng(seed)
-    ahead = np.arange(-4.0, 30.01, 0.5)
-    radius = np.arange(0.25, 8.0, 0.5)
-    out = []
-    for adv in advances:
-        face = first_face_m + step_m * adv
-        aa, rr = np.meshgrid(ahead, radius, indexing="ij")
-        lrho = np.full(aa.shape, math.log10(rho_around))
-        if rho_beyond is not None:
-            d = contact_chainage_m - face
-            width = 0.5 + 0.08 * max(d, 0.0)  # resolution fades with distance
-            lrho += (math.log10(rho_beyond) - math.log10(rho_around)) * 0.5 * (
-                1 + np.tanh((aa - d) / width))
-        if artefact_ahead_m is not None and artefact_shape == "bump":
-            lrho += math.log10(artefact_factor) * np.exp(
-                -((aa - artefact_ahead_m) ** 2 + rr**2) / 4.0)
-        elif artefact_ahead_m is not None:  # a step that sits at a fixed distance ahead
-            lrho += math.log10(artefact_factor) * 0.5 * (1 + np.tanh(aa - artefact_ahead_m))
-        lrho += noise_log10 * rng.standard_normal(aa.shape)
-        rho = 10.0**lrho
-        rho[(aa < 0) & (rr < radius_m)] = np.nan  # inside the machine
-        cov = -0.12 * np.abs(aa) - 0.25 * rr
-        contact = None
-        if with_contact_fit:
-            if rho_beyond is not None and contact_chainage_m - face > 0:
-                d = contact_chainage_m - face
-                half = 0.3 + 0.05 * d
-                contact = ContactFit(ahead_m=d, ahead_lo_m=d - half, ahead_hi_m=d + half,
-                                     resistivity_around_ohmm=rho_around,
-                                     resistivity_beyond_ohmm=rho_beyond, p_no_contact=0.01)
-            else:
-                contact = ContactFit(math.nan, math.nan, math.nan,
-                                     resistivity_around_ohmm=rho_around, p_no_contact=0.95)
-        bad = adv in flagged
-        out.append(AdvanceResult(
-            advance=int(adv), face_chainage_m=face, ahead_m=ahead, radius_m=radius,
-            resistivity_ohmm=rho, coverage=cov,
-            doi_index=np.clip(aa / 60.0, 0, 1) if doi else None,
-            chi2=4.0 if bad else 1.0 + 0.05 * rng.standard_normal(),
-            rrms_percent=2.0, iterations=4, lambda_=20.0,
-            stop_reason="max iterations" if bad else "chi2 reached", converged=not bad,
-            time_s=3.2, chi2_history=[30.0, 6.0, 2.0, 1.0], n_data=120, n_used=118,
-            contact=contact, time=f"2026-03-0{1 + adv % 9}T08:00:00Z"))
-    return out
-
-
-def make_section(advances=range(5), shift="A", **kw):
-    return build_section(make_results(advances, **kw), LAYOUT_TEXT, SETTINGS_TEXT,
-                         inputs_sha256="0" * 64, shift=shift)
+ROOT = Path(__file__).resolve().parents[2]
 
 
 def test_build_section_contract_variables_and_cf_attrs():
@@ -267,9 +200,8 @@ def test_store_roundtrip_values(tmp_path):
 KILL_SCRIPT = """
 import sys, time
 from pathlib import Path
-sys.path.insert(0, {tests!r})
 import tbminv.results.store as section
-from test_section import make_section
+from tests.helpers import make_section
 
 marker = Path({marker!r})
 original = section._write_dataset

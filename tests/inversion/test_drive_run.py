@@ -25,7 +25,7 @@ from tbminv.jobs import EXIT_PARTIAL, invert_job, run_drive
 from tbminv.layout import Layout, load_layout
 from tbminv.results.store import open_section
 
-ROOT = Path(__file__).resolve().parents[1]
+ROOT = Path(__file__).resolve().parents[2]
 
 KILL_SCRIPT = """
 import os, signal, sys

@@ -10,7 +10,6 @@ from __future__ import annotations
 
 import dataclasses
 import math
-from pathlib import Path
 
 import numpy as np
 import pytest
@@ -19,8 +18,8 @@ from tbminv.forward.analytic import layout_response
 from tbminv.forward.ratio import needs_correction, surface_factors
 from tbminv.ground import Scenario
 from tbminv.layout import Layout, load_layout
+from tests.helpers import DATA
 
-DATA = Path(__file__).parent / "data"
 D = 6.0
 
 

@@ -8,11 +8,9 @@ from __future__ import annotations
 
 import subprocess
 import sys
-from pathlib import Path
 
 import numpy as np
 import pytest
-from test_section import make_section
 
 from tbminv.results.ahead import (
     LEVELS,
@@ -24,6 +22,7 @@ from tbminv.results.ahead import (
     detect_changes,
 )
 from tbminv.results.store import open_section
+from tests.helpers import DATA, make_section
 
 
 def test_stationary_contact_from_contact_fits_is_firm():
@@ -91,7 +90,7 @@ def test_settings_from_toml(tmp_path):
 def _drive(tmp_path, name):
     """Invert a synthetic drive (made with the 3D model by tests/data/make_drive_fixtures.py,
     no inverse crime) through the command line (``tbminv invert``) and open the section store."""
-    data = Path(__file__).parent / "data"
+    data = DATA
     settings = tmp_path / "settings.toml"
     # 21 reciprocal pairs per advance: one error model for the whole log
     settings.write_text('[qc]\nerror_model_group = "log"\n'

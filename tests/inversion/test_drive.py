@@ -7,7 +7,6 @@ model, 2 % Gaussian noise, seeds in the file names) are inverted with the axisym
 from __future__ import annotations
 
 import math
-from pathlib import Path
 
 import numpy as np
 import pytest
@@ -20,8 +19,8 @@ from tbminv.jobs import run_drive
 from tbminv.layout import load_layout
 from tbminv.readings.advance import prepare_advances
 from tbminv.readings.qc import QCSettings
+from tests.helpers import DATA
 
-DATA = Path(__file__).parent / "data"
 D = 6.0
 # 21 reciprocal pairs per advance are too few for a model per advance: one for the whole log
 QC = QCSettings(error_model_group="log")
