@@ -26,7 +26,7 @@ import numpy as np
 import tomli_w
 
 from tbminv.cache import atomic_write_text
-from tbminv.tomlfile import read_toml
+from tbminv.tomlfile import check_keys, number, read_toml
 
 
 class ScenarioError(ValueError):
@@ -39,28 +39,14 @@ class NotAxisymmetricError(ValueError):
 
 def _num(tbl: Mapping[str, Any], key: str, where: str, *, default: float | None = None,
          positive: bool = False, allow_inf: bool = False) -> float:
-    if key not in tbl:
-        if default is None:
-            raise ScenarioError(f"{where} {key}: missing; expected a number")
-        return default
-    raw = tbl[key]
-    if isinstance(raw, str) and allow_inf and raw.strip().lower() in ("inf", "-inf"):
-        return math.inf if not raw.strip().startswith("-") else -math.inf
-    if isinstance(raw, bool) or not isinstance(raw, (int, float)):
-        raise ScenarioError(f"{where} {key} = {raw!r}: expected a number")
-    v = float(raw)
-    if math.isnan(v) or (math.isinf(v) and not allow_inf):
-        raise ScenarioError(f"{where} {key} = {raw!r}: expected a finite number")
-    if positive and not v > 0:
-        raise ScenarioError(f"{where} {key} = {raw!r}: expected a number > 0")
-    return v
+    val = number(tbl, key, f"{where} {key}", ScenarioError, default=default, positive=positive,
+                 allow_inf=allow_inf)
+    assert val is not None  # required: number() raised when missing
+    return val
 
 
 def _check_keys(tbl: Mapping[str, Any], allowed: tuple[str, ...], where: str) -> None:
-    extra = sorted(set(tbl) - set(allowed))
-    if extra:
-        raise ScenarioError(f"{where}: unknown key(s) {', '.join(extra)}; expected some of "
-                            f"{', '.join(allowed)}")
+    check_keys(tbl, allowed, where, ScenarioError)
 
 
 @dataclass(frozen=True)

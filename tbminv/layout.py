@@ -25,7 +25,7 @@ import numpy as np
 import tomli_w
 
 from tbminv.cache import atomic_write_text
-from tbminv.tomlfile import read_toml
+from tbminv.tomlfile import check_keys, number, read_toml
 
 ELECTRODE_KINDS = ("cutterhead", "shield", "wall", "remote", "machine")
 PROTOCOL_GENERATORS = ("pole-pole", "machine-pole", "cutterhead-dipole")
@@ -43,25 +43,9 @@ def _where(source: str, table: str, key: str | None = None) -> str:
 def _num(tbl: Mapping[str, Any], key: str, source: str, table: str, *, default: Any = None,
          required: bool = True, positive: bool = False, allow_inf: bool = False,
          nonneg: bool = False) -> float | None:
-    if key not in tbl:
-        if required and default is None:
-            raise LayoutError(f"{_where(source, table, key)}: missing; expected a number in metres "
-                              "or ohm-m as the name says")
-        return default
-    raw = tbl[key]
-    if isinstance(raw, str) and allow_inf and raw.strip().lower() in ("inf", "infinity"):
-        return math.inf
-    if isinstance(raw, bool) or not isinstance(raw, (int, float)):
-        hint = ' or "inf"' if allow_inf else ""
-        raise LayoutError(f"{_where(source, table, key)} = {raw!r}: expected a number{hint}")
-    val = float(raw)
-    if math.isnan(val) or (math.isinf(val) and not allow_inf):
-        raise LayoutError(f"{_where(source, table, key)} = {raw!r}: expected a finite number")
-    if positive and not val > 0:
-        raise LayoutError(f"{_where(source, table, key)} = {raw!r}: expected a number > 0")
-    if nonneg and val < 0:
-        raise LayoutError(f"{_where(source, table, key)} = {raw!r}: expected a number >= 0")
-    return val
+    return number(tbl, key, _where(source, table, key), LayoutError, default=default,
+                  required=required, positive=positive, nonneg=nonneg, allow_inf=allow_inf,
+                  missing="expected a number in metres or ohm-m as the name says")
 
 
 def _bool(tbl: Mapping[str, Any], key: str, source: str, table: str, default: bool) -> bool:
@@ -72,10 +56,7 @@ def _bool(tbl: Mapping[str, Any], key: str, source: str, table: str, default: bo
 
 
 def _unknown_keys(tbl: Mapping[str, Any], allowed: Iterable[str], source: str, table: str) -> None:
-    extra = sorted(set(tbl) - set(allowed))
-    if extra:
-        raise LayoutError(f"{_where(source, table)}: unknown key(s) {', '.join(extra)}; "
-                          f"expected some of {', '.join(sorted(allowed))}")
+    check_keys(tbl, allowed, _where(source, table), LayoutError)
 
 
 @dataclass(frozen=True)

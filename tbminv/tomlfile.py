@@ -2,9 +2,10 @@
 
 from __future__ import annotations
 
+import math
 import os
 import tomllib
-from collections.abc import Callable
+from collections.abc import Callable, Iterable, Mapping
 from pathlib import Path
 from typing import Any
 
@@ -53,4 +54,78 @@ def read_toml(path: str | os.PathLike[str], error: type[Exception], what: str, *
         raise error(f"{p}: not valid TOML ({exc})") from None
 
 
-__all__ = ["read_toml"]
+def check_keys(table: Mapping[str, Any], allowed: Iterable[str], where: str,
+               error: type[Exception]) -> None:
+    """Refuse keys a table does not know, naming them and the ones it takes.
+
+    Parameters
+    ----------
+    table : mapping
+        One parsed TOML table.
+    allowed : iterable of str
+        The keys the table takes.
+    where : str
+        File and table for the message (``"layout.toml [machine]"``).
+    error : exception class
+        Raised with the message.
+    """
+    extra = sorted(set(table) - set(allowed))
+    if extra:
+        raise error(f"{where}: unknown key(s) {', '.join(extra)}; expected some of "
+                    f"{', '.join(sorted(allowed))}")
+
+
+def number(table: Mapping[str, Any], key: str, where: str, error: type[Exception], *,
+           default: float | None = None, required: bool = True, positive: bool = False,
+           nonneg: bool = False, allow_inf: bool = False, missing: str = "expected a number"
+           ) -> float | None:
+    """One number of a parsed TOML table, checked, or one clear error naming file and key.
+
+    Parameters
+    ----------
+    table : mapping
+        The parsed table.
+    key : str
+        The key.
+    where : str
+        File, table and key for the message (``"layout.toml [machine] diameter_m"``).
+    error : exception class
+        Raised with the message.
+    default : float, optional
+        Value when the key is absent.
+    required : bool
+        Absent with no default raises (else ``None`` is returned).
+    positive, nonneg : bool
+        Require a value > 0, or >= 0.
+    allow_inf : bool
+        Accept infinities, also written as the strings ``"inf"``, ``"infinity"``, ``"-inf"``.
+    missing : str
+        What the message says after "missing;".
+
+    Returns
+    -------
+    float or None
+    """
+    if key not in table:
+        if required and default is None:
+            raise error(f"{where}: missing; {missing}")
+        return default
+    raw = table[key]
+    if isinstance(raw, str) and allow_inf:
+        word = raw.strip().lower()
+        if word in ("inf", "infinity", "+inf", "-inf", "-infinity"):
+            return -math.inf if word.startswith("-") else math.inf
+    if isinstance(raw, bool) or not isinstance(raw, (int, float)):
+        hint = ' or "inf"' if allow_inf else ""
+        raise error(f"{where} = {raw!r}: expected a number{hint}")
+    val = float(raw)
+    if math.isnan(val) or (math.isinf(val) and not allow_inf):
+        raise error(f"{where} = {raw!r}: expected a finite number")
+    if positive and not val > 0:
+        raise error(f"{where} = {raw!r}: expected a number > 0")
+    if nonneg and val < 0:
+        raise error(f"{where} = {raw!r}: expected a number >= 0")
+    return val
+
+
+__all__ = ["read_toml", "check_keys", "number"]
