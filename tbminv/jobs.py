@@ -381,7 +381,8 @@ def reach_job(layout_path: str | Path, out_dir: str | Path, *, contrast: float =
               noise_rel: float = 0.02, noise_abs_v: float = 0.0, k: float = 3.0,
               model: str = "axisym", model_settings: str = "fast", target: str = "contact",
               sweep_path: str | Path | None = None, workers: int | None = None,
-              scheduler: str | None = None, echo: Callable[[str], None] | None = None) -> int:
+              scheduler: str | None = None, echo: Callable[[str], None] | None = None,
+              false_alarm: float | None = None, detection_probability: float = 0.5) -> int:
     """``tbminv reach``: one layout (``DIR/reach.nc`` + figures) or a sweep (``DIR/sweep.nc``).
 
     Parameters
@@ -393,7 +394,10 @@ def reach_job(layout_path: str | Path, out_dir: str | Path, *, contrast: float =
     noise_rel : float
         Relative noise (fraction); ``noise_abs_v`` absolute noise, V.
     k : float
-        Detection threshold in standard deviations.
+        Detection threshold of one reading in standard deviations; also sets the whole-set
+        false alarm probability ``2 Phi(-k)`` unless ``false_alarm`` is given.
+    false_alarm, detection_probability : float, optional
+        Criterion of the whole-set reach ``reach_m`` (:class:`tbminv.studies.reach.ReachSettings`).
     model, model_settings : str
         Forward model name and its preset (``fast`` / ``standard``, see
         :func:`tbminv.forward.registry.model_options_for`).
@@ -417,7 +421,8 @@ def reach_job(layout_path: str | Path, out_dir: str | Path, *, contrast: float =
     out.mkdir(parents=True, exist_ok=True)
     choice = model_settings
     settings = ReachSettings(contrast=contrast, noise_rel=noise_rel, noise_abs_v=noise_abs_v,
-                             model=model, k=float(k), target=target)
+                             model=model, k=float(k), target=target, false_alarm=false_alarm,
+                             detection_probability=float(detection_probability))
     if sweep_path:
         sweep, opts = load_sweep(sweep_path)
         known = ("k", "model", "target", "background_ohmm", "length", "distances_in_diameters",
@@ -467,14 +472,28 @@ def reach_job(layout_path: str | Path, out_dir: str | Path, *, contrast: float =
     path = out / "reach.nc"
     with atomic_path(path) as tmp:
         ds.to_netcdf(tmp, engine="h5netcdf")
-    reach = float(ds["reach_m"])
-    bound = ">= " if bool(ds["reach_at_grid_end"]) else ""
-    echo(f"reach of {layout.name or layout_path}: {bound}{reach:.1f} m ahead "
-          f"({bound}{reach / layout.machine.diameter_m:.1f} D) for contrast "
-          f"{settings.contrast:g} at {100 * settings.noise_rel:g} % noise, k = {settings.k:g} "
-          f"({model}, {choice} settings)")
-    if bound:
-        echo("  (the change is still seen at the last distance of the grid)")
+    diam = layout.machine.diameter_m
+
+    def _fmt(value: float, at_end: bool) -> str:
+        bound = ">= " if at_end else ""
+        return f"{bound}{value:.1f} m ({bound}{value / diam:.1f} D)"
+
+    reach_end = bool(ds["reach_at_grid_end"])
+    single_end = bool(ds["reach_per_reading_at_grid_end"])
+    echo(f"reach of {layout.name or layout_path} for contrast {settings.contrast:g} at "
+         f"{100 * settings.noise_rel:g} % noise ({model}, {choice} settings):")
+    echo(f"  reach_m {_fmt(float(ds['reach_m']), reach_end)} ahead: whole reading set, "
+         f"resistivity around the machine unknown (likelihood ratio, false alarm "
+         f"{100 * ds.attrs['false_alarm']:.2g} %, detection probability "
+         f"{100 * ds.attrs['detection_probability']:.0f} %)")
+    echo(f"  reach_per_reading_m {_fmt(float(ds['reach_per_reading_m']), single_end)} ahead: "
+         f"best single reading, resistivity around the machine known, |dR/R| >= "
+         f"{settings.k:g} sigma (optimistic)")
+    if reach_end or single_end:
+        echo("  (>=: the change is still seen at the last distance of the grid)")
+    echo("  a planning figure at the stated noise: a contact beyond the reach can be present and "
+         "unseen ('none seen' is not 'all clear')")
+    echo("  detectable distance of single readings (resistivity around known):")
     for b in best_measurements(ds, 5):
         echo(f"  {b['a']} {b['b']} {b['m']} {b['n']}: {b['detectable_ahead_m']:.1f} m")
     echo(f"dataset -> {path}")

@@ -2,11 +2,47 @@
 
 For a layout, a planar contact square to the axis (or a sphere on the axis) is moved from far ahead
 of the face towards it; at each distance the forward model gives every quadrupole's transfer
-resistance ``R(d)`` against the homogeneous ``R0``. A quadrupole *sees* the change at distance ``d``
-when ``|R(d)/R0 - 1| >= k sigma(R0)/|R0|`` with the error model ``sigma = a + b|R|``
-(``a = noise_abs_v / current_a`` in ohm, ``b = noise_rel``; the envelope of Slater et al. 2000,
-J. Appl. Geophys. 44:85-102). Its detectable distance is the largest such ``d`` on the grid (0 where
-never), and the layout's reach is the largest detectable distance over usable quadrupoles.
+resistance ``R(d)`` against the homogeneous ``R0``. The noise of a reading is the error model
+``sigma = a + b|R0|`` (``a = noise_abs_v / current_a`` in ohm, ``b = noise_rel``; the envelope of
+Slater et al. 2000, J. Appl. Geophys. 44:85-102), independent between readings.
+
+Two figures of reach, named apart everywhere they are written:
+
+``reach_m`` (whole reading set, resistivity around the machine unknown)
+    The distance up to which the layout's whole set of readings tells "contact at d" from "no
+    contact", with the resistivity around the machine fitted. The homogeneous model scales every
+    transfer resistance by one factor ``s = rho / rho0``; fitted to the noise-free contact data
+    (the "Asimov" data set of Cowan, Cranmer, Gross & Vitells 2011, Eur. Phys. J. C 71:1554) by
+    weighted least squares, ``s - 1`` is the weighted mean of the relative responses
+    ``r_i = R_i(d)/R0_i - 1`` with weights ``w_i = (|R0_i| / sigma_i)^2`` (closed form), and the
+    minimum chi-squared ``lambda(d) = sum w_i (r_i - rbar)^2`` is the noncentrality of the
+    likelihood-ratio statistic (its expected value under the contact). A change that scales all
+    readings alike (``r_i`` equal) is absorbed by ``s`` and gives ``lambda = 0``: no reach. The
+    fit is linear in ``s`` because a homogeneous ground's transfer resistance is proportional to
+    its resistivity, so it is exact for Gaussian errors on ``R`` (to first order in ``r`` it is
+    the weighted mean of ``log(R/R0)``, the log-resistivity form), and a reading whose response
+    changes sign stays in; ``sigma`` is held at ``R0`` (a fixed covariance, as the asymptotic
+    formulae assume). The
+    contact counts as seen where ``lambda`` reaches the threshold ``lambda*`` of the detection
+    criterion (:func:`detection_threshold`): a statistic asymptotically chi-squared with ``dof``
+    degrees of freedom under "no contact" and noncentral chi-squared ``(dof, lambda)`` under the
+    contact (Wald 1943, Trans. Amer. Math. Soc. 54:426-482; Cowan et al. 2011, sec. 3), a false
+    alarm probability ``alpha`` and a detection probability ``beta``. Default: ``dof = 1``,
+    ``alpha = 2 Phi(-k)`` (0.27 % for k = 3) and ``beta = 0.5``, which gives ``lambda* = k^2`` to
+    1e-6: one reading with the resistivity known would reach exactly as far as by ``|dR/R| >= k
+    sigma/|R|``. ``dof = 1`` is a detector that looks for the contact at the given distance with
+    its strength free; one that searches over distances alarms more often by chance (the
+    look-elsewhere effect, Gross & Vitells 2010, Eur. Phys. J. C 70:525): for it, lower
+    ``false_alarm`` or raise ``dof``.
+``reach_per_reading_m`` (best single reading, resistivity around the machine known)
+    The largest distance at which any one usable quadrupole sees ``|R(d)/R0 - 1| >= k
+    sigma/|R0|``: optimistic, it assumes ``rho0`` known and picks the best of many readings.
+
+Both distances (and ``detectable_ahead_m`` per quadrupole) interpolate the threshold crossing
+between the grid distance where the change is last seen and the next one, linearly in
+log(value) against log(distance): exact for a power-law decay between two grid points (the far
+field of a contact falls off as a power of the distance). A reach at the grid's last distance is
+a lower bound (``reach_at_grid_end``, ``reach_per_reading_at_grid_end``).
 
 Sweeps over diameter, contrast, noise and cover run as independent tasks on dask.distributed
 (:func:`run_sweep`): tasks carry plain dictionaries and rebuild layouts and meshes in the worker.
@@ -24,6 +60,8 @@ from typing import Any
 
 import numpy as np
 import xarray as xr
+from scipy.optimize import brentq
+from scipy.stats import chi2, ncx2, norm
 
 from tbminv.forward.registry import ForwardModel, make_model
 from tbminv.ground import Contact, Scenario, Sphere
@@ -53,7 +91,13 @@ class ReachSettings:
     current_a : float
         Injected current, A.
     k : float
-        Detection threshold in standard deviations.
+        Detection threshold of one reading, in standard deviations (``reach_per_reading_m``).
+    false_alarm : float or None
+        False alarm probability of the whole-set criterion (``reach_m``); None: ``2 Phi(-k)``.
+    detection_probability : float
+        Probability of detecting the contact at the reach (``reach_m``); 0.5 is the median.
+    dof : int
+        Degrees of freedom of the likelihood-ratio statistic under "no contact" (``reach_m``).
     distances_m : tuple of float
         Distances ahead of the face, m (default: 0.25 D … 12 D, 33 steps, geometric).
     target : str
@@ -76,6 +120,9 @@ class ReachSettings:
     noise_abs_v: float = 0.0
     current_a: float = 1.0
     k: float = 3.0
+    false_alarm: float | None = None
+    detection_probability: float = 0.5
+    dof: int = 1
     distances_m: tuple[float, ...] = ()
     target: str = "contact"
     sphere_radius_m: float = 2.0
@@ -227,31 +274,194 @@ def _settings_attrs(settings: ReachSettings) -> dict[str, Any]:
     return out
 
 
+def detection_threshold(false_alarm: float, detection_probability: float, dof: int = 1) -> float:
+    """Noncentrality a likelihood-ratio test needs to meet its false-alarm and detection goals.
+
+    The statistic is chi-squared with ``dof`` degrees of freedom under "no contact" and
+    noncentral chi-squared ``(dof, lambda)`` under the contact (Wald 1943, Trans. Amer. Math.
+    Soc. 54:426-482; Cowan, Cranmer, Gross & Vitells 2011, Eur. Phys. J. C 71:1554, sec. 3). The
+    test alarms above ``c = chi2.isf(false_alarm, dof)``; the threshold is the ``lambda`` with
+    ``P(chi2'(dof, lambda) > c) = detection_probability``.
+
+    Parameters
+    ----------
+    false_alarm : float
+        Probability of an alarm without a contact, in (0, 1).
+    detection_probability : float
+        Probability of an alarm with the contact, in ``(false_alarm, 1)``.
+    dof : int
+        Degrees of freedom (>= 1).
+
+    Returns
+    -------
+    float
+        Threshold noncentrality ``lambda*`` (dimensionless, > 0).
+    """
+    if not 0.0 < false_alarm < 1.0:
+        raise ValueError(f"false_alarm = {false_alarm!r}: expected a probability in (0, 1)")
+    if not false_alarm < detection_probability < 1.0:
+        raise ValueError(f"detection_probability = {detection_probability!r}: expected a "
+                         f"probability above the false alarm {false_alarm!r} and below 1")
+    if int(dof) != dof or dof < 1:
+        raise ValueError(f"dof = {dof!r}: expected a whole number >= 1")
+    crit = float(chi2.isf(false_alarm, dof))
+    hi = 1.0
+    while float(ncx2.sf(crit, dof, hi)) < detection_probability:
+        hi *= 2.0
+    return float(brentq(lambda lam: float(ncx2.sf(crit, dof, lam)) - detection_probability,
+                        0.0, hi, xtol=1e-12, rtol=1e-12))
+
+
+def profiled_noncentrality(relative_response: np.ndarray, relative_error: np.ndarray,
+                           *, resistivity_known: bool = False) -> tuple[np.ndarray, np.ndarray]:
+    """Minimum chi-squared of the homogeneous model against noise-free contact data.
+
+    Parameters
+    ----------
+    relative_response : ndarray (measurement, distance)
+        ``r = R(d)/R0 - 1`` (dimensionless); non-finite entries are left out.
+    relative_error : ndarray (measurement,)
+        ``sigma / |R0|`` (dimensionless); infinite entries carry no weight.
+    resistivity_known : bool
+        Hold the resistivity around the machine at its true value (``s = 1``) instead of
+        fitting it.
+
+    Returns
+    -------
+    noncentrality : ndarray (distance,)
+        ``lambda = sum w (r - (s - 1))^2`` at the best ``s`` (dimensionless).
+    resistivity_ratio : ndarray (distance,)
+        Best homogeneous resistivity / true resistivity around the machine, ``s``
+        (dimensionless; 1 where nothing is weighted or the resistivity is known).
+    """
+    r = np.asarray(relative_response, float)
+    err = np.asarray(relative_error, float)
+    with np.errstate(divide="ignore"):
+        w = np.where(np.isfinite(err) & (err > 0), 1.0 / err**2, 0.0)
+    w = np.broadcast_to(w[:, None], r.shape)
+    ok = np.isfinite(r) & (w > 0)
+    wz = np.where(ok, w, 0.0)
+    rz = np.where(ok, r, 0.0)
+    wsum = wz.sum(axis=0)
+    if resistivity_known:
+        shift = np.zeros(r.shape[1])
+    else:
+        with np.errstate(invalid="ignore", divide="ignore"):
+            shift = np.where(wsum > 0, (wz * rz).sum(axis=0) / np.where(wsum > 0, wsum, 1.0),
+                             0.0)
+    lam = (wz * (rz - shift[None, :]) ** 2).sum(axis=0)
+    return lam, 1.0 + shift
+
+
+def threshold_crossing(distance_m: np.ndarray, value: np.ndarray,
+                       threshold: float) -> tuple[float, bool]:
+    """Largest distance where ``value >= threshold``, interpolated to the crossing.
+
+    The crossing lies between the last grid distance where the value reaches the threshold and
+    the next one; there ``log(value)`` is interpolated linearly in ``log(distance)`` (exact for a
+    power law between the two points). Where the next value is not positive, ``value`` itself is
+    interpolated linearly in ``log(distance)``.
+
+    Parameters
+    ----------
+    distance_m : ndarray
+        Increasing distances, m.
+    value : ndarray
+        Detection statistic at each distance (non-finite: not seen).
+    threshold : float
+        Value at which the change counts as seen (> 0).
+
+    Returns
+    -------
+    distance : float
+        Crossing distance, m; 0 when never seen; the last distance when still seen there.
+    at_end : bool
+        Seen at the last grid distance (the distance is a lower bound).
+    """
+    d = np.asarray(distance_m, float)
+    v = np.asarray(value, float)
+    seen = np.isfinite(v) & (v >= threshold)
+    if not seen.any():
+        return 0.0, False
+    j = int(np.flatnonzero(seen)[-1])
+    if j == d.size - 1:
+        return float(d[j]), True
+    v0, v1 = float(v[j]), float(v[j + 1])
+    x0, x1 = np.log(d[j]), np.log(d[j + 1])
+    if np.isfinite(v1) and v1 > 0:
+        t = (np.log(v0) - np.log(threshold)) / (np.log(v0) - np.log(v1))
+    else:
+        v1 = v1 if np.isfinite(v1) else 0.0
+        t = (v0 - threshold) / (v0 - v1) if v0 > v1 else 0.0
+    t = float(np.clip(t, 0.0, 1.0))
+    return float(np.exp(x0 + t * (x1 - x0))), False
+
+
 def detectability(ds: xr.Dataset, *, noise_rel: float, noise_abs_v: float = 0.0,
-                  current_a: float = 1.0, k: float = 3.0) -> xr.Dataset:
-    """Add detectable distance per quadrupole and the layout's reach to a response dataset.
+                  current_a: float = 1.0, k: float = 3.0, false_alarm: float | None = None,
+                  detection_probability: float = 0.5, dof: int = 1) -> xr.Dataset:
+    """Add detectable distance per quadrupole and the layout's two reaches to a response dataset.
+
+    Parameters
+    ----------
+    ds : xarray.Dataset
+        Output of :func:`response_vs_distance`.
+    noise_rel : float
+        Relative error b (fraction).
+    noise_abs_v : float
+        Absolute voltage error, V.
+    current_a : float
+        Injected current, A.
+    k : float
+        Threshold of one reading in standard deviations.
+    false_alarm : float, optional
+        False alarm probability of the whole-set criterion (default ``2 Phi(-k)``).
+    detection_probability : float
+        Detection probability at the whole-set reach.
+    dof : int
+        Degrees of freedom of the whole-set statistic.
 
     Returns
     -------
     xarray.Dataset
         The input plus ``relative_error`` (measurement), ``detected`` (measurement,
-        distance_ahead), ``detectable_ahead_m`` (measurement; 0 where never), ``usable``
-        (measurement; relative error below 1), the scalar ``reach_m`` and the flag
-        ``reach_at_grid_end`` (the reach is only a lower bound when it is the grid's last
-        distance).
+        distance_ahead), ``detectable_ahead_m`` (measurement; interpolated crossing, 0 where
+        never), ``usable`` (measurement; relative error below 1), ``noncentrality`` and
+        ``noncentrality_known_resistivity`` and ``fitted_resistivity_ratio`` (distance_ahead),
+        the scalars ``reach_m`` (whole set, resistivity unknown), ``reach_per_reading_m`` (best
+        single reading, resistivity known), ``detection_threshold``, and the flags
+        ``reach_at_grid_end`` / ``reach_per_reading_at_grid_end`` (still seen at the grid's last
+        distance: a lower bound).
     """
+    if false_alarm is None:
+        false_alarm = float(2.0 * norm.sf(k))
+    lam_star = detection_threshold(false_alarm, detection_probability, dof)
     r0 = np.abs(ds["r0_ohm"].values)
     a_ohm = noise_abs_v / current_a
     with np.errstate(divide="ignore", invalid="ignore"):
         rel_err = (a_ohm + noise_rel * r0) / r0
     rel_err = np.where(np.isfinite(rel_err), rel_err, np.inf)
-    resp = np.abs(ds["relative_response"].values)
+    rel = ds["relative_response"].values
+    resp = np.abs(rel)
     detected = resp >= k * rel_err[:, None]
     detected &= np.isfinite(resp)
     d = ds["distance_ahead"].values
-    det = np.where(detected, d[None, :], 0.0).max(axis=1)
     usable = rel_err < 1.0
-    reach = float(det[usable].max()) if usable.any() else 0.0
+    det = np.zeros(r0.size)
+    for i in range(r0.size):
+        if np.isfinite(rel_err[i]) and rel_err[i] > 0:
+            det[i] = threshold_crossing(d, resp[i] / (k * rel_err[i]), 1.0)[0]
+    if usable.any():
+        i_best = int(np.flatnonzero(usable)[np.argmax(det[usable])])
+        per_reading = float(det[i_best])
+        per_reading_end = bool(d.size and detected[i_best, -1] and per_reading >= d.max())
+    else:
+        per_reading, per_reading_end = 0.0, False
+    lam, ratio = profiled_noncentrality(rel, rel_err)
+    lam_known, _ = profiled_noncentrality(rel, rel_err, resistivity_known=True)
+    reach, reach_end = threshold_crossing(d, lam, lam_star)
+    crit = (f"likelihood ratio, {dof} degree(s) of freedom: false alarm {false_alarm:.3g}, "
+            f"detection probability {detection_probability:.3g}")
     out = ds.copy()
     out["relative_error"] = ("measurement", rel_err,
                              {"units": "1", "long_name": "relative standard error a/|R0| + b"})
@@ -259,13 +469,40 @@ def detectability(ds: xr.Dataset, *, noise_rel: float, noise_abs_v: float = 0.0,
                        {"long_name": f"|dR/R| >= {k:g} sigma/|R|"})
     out["detectable_ahead_m"] = ("measurement", det,
                                  {"units": "m", "long_name": "largest distance ahead at which "
-                                                             "the change is detectable"})
+                                                             "this reading alone sees the change "
+                                                             "(resistivity around known; "
+                                                             "crossing interpolated in log-log)"})
     out["usable"] = ("measurement", usable, {"long_name": "relative error below 100 %"})
-    out["reach_m"] = ((), reach, {"units": "m", "long_name": "look-ahead reach of the layout"})
-    out["reach_at_grid_end"] = ((), bool(d.size and reach >= d.max()),
-                                {"long_name": "reach is the last distance of the grid (a lower "
+    out["noncentrality"] = ("distance_ahead", lam,
+                            {"units": "1", "long_name": "minimum chi-squared of the homogeneous "
+                                                        "model with free resistivity against "
+                                                        "the noise-free contact data"})
+    out["noncentrality_known_resistivity"] = (
+        "distance_ahead", lam_known,
+        {"units": "1", "long_name": "chi-squared of the true homogeneous ground against the "
+                                    "noise-free contact data (resistivity around known)"})
+    out["fitted_resistivity_ratio"] = ("distance_ahead", ratio,
+                                       {"units": "1", "long_name": "best homogeneous "
+                                                                   "resistivity / resistivity "
+                                                                   "around the machine"})
+    out["detection_threshold"] = ((), lam_star, {"units": "1", "long_name": "noncentrality "
+                                                 "needed by the criterion: " + crit})
+    out["reach_m"] = ((), reach, {"units": "m", "long_name": "look-ahead reach: whole reading "
+                                  "set, resistivity around the machine unknown (" + crit + ")"})
+    out["reach_at_grid_end"] = ((), bool(reach_end),
+                                {"long_name": "reach_m is the last distance of the grid (a lower "
                                               "bound: the change is still seen there)"})
-    out.attrs.update(noise_rel=noise_rel, noise_abs_v=noise_abs_v, current_a=current_a, k=k)
+    out["reach_per_reading_m"] = ((), per_reading,
+                                  {"units": "m", "long_name": f"best single reading, resistivity "
+                                                              f"around the machine known, "
+                                                              f"|dR/R| >= {k:g} sigma/|R|"})
+    out["reach_per_reading_at_grid_end"] = ((), per_reading_end,
+                                            {"long_name": "reach_per_reading_m is the last "
+                                                          "distance of the grid (a lower "
+                                                          "bound)"})
+    out.attrs.update(noise_rel=noise_rel, noise_abs_v=noise_abs_v, current_a=current_a, k=k,
+                     false_alarm=false_alarm, detection_probability=detection_probability,
+                     dof=int(dof))
     return out
 
 
@@ -285,7 +522,9 @@ def reach_study(layout: Layout, settings: ReachSettings,
     """Response vs distance and detectability for one layout (see the module docstring)."""
     ds = response_vs_distance(layout, settings, model)
     return detectability(ds, noise_rel=settings.noise_rel, noise_abs_v=settings.noise_abs_v,
-                         current_a=settings.current_a, k=settings.k)
+                         current_a=settings.current_a, k=settings.k,
+                         false_alarm=settings.false_alarm,
+                         detection_probability=settings.detection_probability, dof=settings.dof)
 
 
 # ----------------------------------------------------------------------------- files, CLI
@@ -313,5 +552,6 @@ def load_sweep(path: str | Path) -> tuple[dict[str, list[float]], dict[str, Any]
 
 
 __all__ = ["SWEEP_PARAMETERS", "ReachSettings", "default_face_chainage", "target_scenario",
-           "response_vs_distance", "reading_family", "detectability", "best_measurements",
+           "response_vs_distance", "reading_family", "detection_threshold",
+           "profiled_noncentrality", "threshold_crossing", "detectability", "best_measurements",
            "reach_study", "load_sweep"]

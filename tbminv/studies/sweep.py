@@ -99,6 +99,8 @@ def _task(config: dict[str, Any]) -> dict[str, Any]:
             "detectable_ahead_m": ds["detectable_ahead_m"].values,
             "reach_m": float(ds["reach_m"]), "distance_ahead": ds["distance_ahead"].values,
             "reach_at_grid_end": bool(ds["reach_at_grid_end"]),
+            "reach_per_reading_m": float(ds["reach_per_reading_m"]),
+            "reach_per_reading_at_grid_end": bool(ds["reach_per_reading_at_grid_end"]),
             "task_s": time.perf_counter() - t0, "pid": os.getpid(),
             "peak_rss_mb": _peak_rss_mb()}
 
@@ -138,8 +140,8 @@ def run_sweep(layout: Layout, sweep: Mapping[str, Sequence[float]], settings: Re
     Returns
     -------
     xarray.Dataset
-        ``reach_m`` over the swept dims, ``detectable_ahead_m`` (swept dims, measurement) and
-        ``relative_response`` (swept dims, measurement, step).
+        ``reach_m`` and ``reach_per_reading_m`` over the swept dims, ``detectable_ahead_m``
+        (swept dims, measurement) and ``relative_response`` (swept dims, measurement, step).
     """
     for k in sweep:
         if k not in SWEEP_PARAMETERS:
@@ -165,6 +167,8 @@ def run_sweep(layout: Layout, sweep: Mapping[str, Sequence[float]], settings: Re
     rel = np.empty((len(cases), nq, nd))
     dist = np.empty((len(cases), nd))
     at_end = np.empty(len(cases), bool)
+    single = np.empty(len(cases))
+    single_end = np.empty(len(cases), bool)
     task_s = np.empty(len(cases))
     rss = np.empty(len(cases))
     pid = np.empty(len(cases), np.int64)
@@ -173,12 +177,21 @@ def run_sweep(layout: Layout, sweep: Mapping[str, Sequence[float]], settings: Re
                                              r["relative_response"], r["distance_ahead"])
         at_end[i], task_s[i], rss[i], pid[i] = (r["reach_at_grid_end"], r["task_s"],
                                                 r["peak_rss_mb"], r["pid"])
+        single[i], single_end[i] = r["reach_per_reading_m"], r["reach_per_reading_at_grid_end"]
     coords = {k: (k, np.asarray(v), {"units": _unit(k)}) for k, v in zip(names, values)}
     coords["measurement"] = np.arange(nq)
     ds = xr.Dataset(
         {
-            "reach_m": (names, reach.reshape(shape), {"units": "m",
-                                                      "long_name": "look-ahead reach"}),
+            "reach_m": (names, reach.reshape(shape),
+                        {"units": "m", "long_name": "look-ahead reach: whole reading set, "
+                                                    "resistivity around the machine unknown"}),
+            "reach_per_reading_m": (names, single.reshape(shape),
+                                    {"units": "m", "long_name": "best single reading, "
+                                                                "resistivity around the machine "
+                                                                "known"}),
+            "reach_per_reading_at_grid_end": (names, single_end.reshape(shape),
+                                              {"long_name": "reach_per_reading_m is the grid's "
+                                                            "last distance (lower bound)"}),
             "detectable_ahead_m": ((*names, "measurement"), det.reshape(*shape, nq),
                                    {"units": "m"}),
             "relative_response": ((*names, "measurement", "step"),
