@@ -8,7 +8,8 @@ Commands (the README lists them; DEVELOPERS.md the file formats)::
     tbminv invert READINGS --layout L.toml --store STORE.nc [--settings S.toml] [--cold]
                     [--scheduler ADDRESS]
     tbminv reach --layout L.toml --out DIR [--contrast C] [--noise-rel R] [--noise-abs V]
-                    [--sweep SWEEP.toml] [--scheduler ADDRESS]
+                 [--false-alarm P] [--detection-probability P] [--sweep SWEEP.toml]
+                 [--scheduler ADDRESS]
     tbminv report STORE.nc --out DIR [--settings S.toml] [--materials TABLE] [--shift LABEL]
     tbminv demo --out DIR
     tbminv env                      # environment report for bug reports
@@ -49,14 +50,18 @@ class CLIError(Exception):
 
 
 def _number(kind: str) -> Callable[[str], float]:
-    """An argparse type: a finite float that is ``positive`` (> 0) or ``non-negative`` (>= 0)."""
+    """An argparse type: a finite float that is ``positive`` (> 0), ``non-negative`` (>= 0) or a
+    ``probability`` strictly between 0 and 1."""
 
     def parse(text: str) -> float:
         try:
             value = float(text)
         except ValueError:
             raise argparse.ArgumentTypeError(f"{text!r} is not a number") from None
-        ok = np.isfinite(value) and (value > 0 if kind == "positive" else value >= 0)
+        if kind == "probability":
+            ok = bool(0.0 < value < 1.0)
+        else:
+            ok = np.isfinite(value) and (value > 0 if kind == "positive" else value >= 0)
         if not ok:
             raise argparse.ArgumentTypeError(f"{text!r}: expected a {kind} number")
         return value
@@ -67,6 +72,7 @@ def _number(kind: str) -> Callable[[str], float]:
 
 POSITIVE = _number("positive")
 NON_NEGATIVE = _number("non-negative")
+PROBABILITY = _number("probability")
 
 
 def parse_faces(text: str) -> np.ndarray:
@@ -131,7 +137,8 @@ def cmd_reach(args: argparse.Namespace) -> int:
                      noise_abs_v=args.noise_abs, k=args.k, model=args.model,
                      model_settings=args.model_settings, target=args.target,
                      sweep_path=args.sweep, workers=args.workers, scheduler=args.scheduler,
-                     echo=print)
+                     false_alarm=args.false_alarm,
+                     detection_probability=args.detection_probability, echo=print)
 
 
 def cmd_report(args: argparse.Namespace) -> int:
@@ -222,7 +229,13 @@ def build_parser() -> argparse.ArgumentParser:
     r.add_argument("--model-settings", default="fast", choices=MODEL_SETTINGS_CHOICES,
                    help="axisym accuracy/speed preset (default fast: within 1 %% of standard)")
     r.add_argument("--k", type=POSITIVE, default=3.0,
-                   help="detection threshold in standard deviations (default 3)")
+                   help="detection threshold of one reading in standard deviations (default 3; "
+                        "also sets the whole-set false-alarm probability 2 Phi(-k))")
+    r.add_argument("--false-alarm", type=PROBABILITY, default=None,
+                   help="false-alarm probability of the whole-set reach reach_m "
+                        "(default: 2 Phi(-k), 0.27 %% for k = 3)")
+    r.add_argument("--detection-probability", type=PROBABILITY, default=0.5,
+                   help="detection probability at reach_m (default 0.5)")
     r.add_argument("--target", default="contact", choices=("contact", "sphere"),
                    help="what approaches the face (default: a contact square to the axis)")
     r.add_argument("--workers", type=int, default=None,

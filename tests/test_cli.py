@@ -17,7 +17,9 @@ def _run(*args: str, cwd=None) -> subprocess.CompletedProcess:
 
 @pytest.mark.parametrize(("option", "value"), [("--noise-rel", "-1"), ("--noise-abs", "-0.1"),
                                                ("--contrast", "0"), ("--contrast", "-3"),
-                                               ("--k", "0"), ("--noise-rel", "nan")])
+                                               ("--k", "0"), ("--noise-rel", "nan"),
+                                               ("--false-alarm", "0"), ("--false-alarm", "1.5"),
+                                               ("--detection-probability", "1")])
 def test_reach_refuses_impossible_numbers(tmp_path, option, value):
     out = _run("reach", "--layout", str(demo_layout_path()), "--out", str(tmp_path / "o"),
                option, value)
