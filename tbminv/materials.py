@@ -1,7 +1,7 @@
 """Candidate materials from resistivity, and Archie's law.
 
 Resistivity does not name a material: the handbook ranges of soils and rocks overlap over
-decades (clay and till can share a value). :func:`candidates` therefore returns *every* class
+decades (a water-bearing sand and a silt can both read 60 ohm-m). :func:`candidates` therefore returns *every* class
 whose range contains the value (or overlaps an interval), never a single answer.
 
 The built-in table (:data:`HANDBOOK_TABLE`) follows the ranges of Reynolds 2011, *An

@@ -3,7 +3,7 @@
 Handbook checks: Reynolds 2011, An Introduction to Applied and Environmental Geophysics,
 2nd ed., table 7.1 (after Telford et al. 1990). The built-in ranges were written from memory of
 that table and must be checked against the book; the checks below are the ones the table is
-known for (clay spans ~10 ohm-m, granite does not; clay and till overlap near 25 ohm-m).
+known for (clay spans ~10 ohm-m, granite does not; sand and silt overlap over 10-200 ohm-m).
 Archie's law: Archie 1942, Trans. AIME 146:54-62 (the worked numbers follow from the formula).
 """
 
@@ -41,11 +41,12 @@ def test_10_ohmm_includes_clay_excludes_granite():
     assert "granite" not in found
 
 
-def test_25_ohmm_is_ambiguous_clay_and_till():
-    # Reynolds 2011 table 7.1 (from memory): clay 1-100, boulder clay 15-35 ohm-m
-    found = names(25.0)
-    assert "clay" in found and "till (boulder clay)" in found
-    assert "ranges overlap" in describe_candidates(25.0)
+def test_60_ohmm_is_ambiguous_sand_and_silt():
+    # Reynolds 2011 table 7.1 (from memory): sand 10-1000 (low end saturated), silt 10-200 ohm-m
+    found = names(60.0)
+    assert "sand" in found and "silt" in found
+    assert "granite" not in found
+    assert "ranges overlap" in describe_candidates(60.0)
 
 
 def test_interval_query_overlaps_and_positions():
