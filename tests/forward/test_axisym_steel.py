@@ -64,8 +64,10 @@ def test_current_into_machine_far_field(perfect):
 
 def test_insulated_face_electrode_near_machine_potential(perfect):
     """An insulated electrode 5 cm in front of the steel face reads close to the machine's
-    potential when current enters the body (within about 1 % for D = 6 m: a 3D trial noted in
-    the shared pyGIMLi notes; here within 2 %)."""
+    potential when current enters the body: a perfect conductor is an equipotential and the
+    potential is continuous across the thin gap (Jackson 1999, Classical Electrodynamics,
+    3rd ed., sec. 1.9, from memory). The 2 % bound is measured with this project's model
+    (this test and tests/forward/test_fem3d_model.py)."""
     g = perfect
     vm = g[LABELS.index("M0"), LABELS.index("M0")]
     vc = g[LABELS.index("C1"), LABELS.index("M0")]
