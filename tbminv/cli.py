@@ -198,7 +198,9 @@ def build_parser() -> argparse.ArgumentParser:
                     "store as one shift.",
         epilog="Each advance's image is journaled beside the store (STORE.journal/) as soon as "
                "it is done;\nafter a crash or a kill, the same command resumes where it "
-               "stopped.\n\n"
+               "stopped.\nAppending to a store continues its drive: advances it holds are "
+               "skipped, the first new\nadvance starts from its last model and the contact "
+               "fit uses its advances' readings.\n\n"
                "exit codes:\n"
                "  0  success\n"
                "  2  bad input (one line naming the file, row or field); nothing is stored\n"

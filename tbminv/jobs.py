@@ -2,12 +2,14 @@
 
 from __future__ import annotations
 
+import contextlib
 import dataclasses
 import hashlib
 import json
 import logging
 import math
 import os
+import shutil
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -23,11 +25,12 @@ from tbminv.cache import atomic_path, atomic_write_text
 from tbminv.forward.registry import model_options_for
 from tbminv.gimli import versions
 from tbminv.inversion.drive import DriveInverter
-from tbminv.inversion.journal import Journal
+from tbminv.inversion.journal import Journal, journal_root
 from tbminv.inversion.outcome import (
     POSTPROCESS_MASKS,
     POSTPROCESS_MEANINGS,
     POSTPROCESS_RESAMPLING_FAILED,
+    SectionError,
 )
 from tbminv.inversion.settings import (
     SCHEDULER_NEEDS_COLD,
@@ -45,8 +48,9 @@ from tbminv.readings.qc import QCResult, QCSettings, _json, summary_text
 from tbminv.readings.reader import Readings
 from tbminv.report import write_report
 from tbminv.results.ahead import AheadSettings
+from tbminv.results.drivestate import add_history, read_history, repeated_advances
 from tbminv.results.section import build_section
-from tbminv.results.store import append_shift, check_appendable
+from tbminv.results.store import append_shift, check_appendable, open_section
 from tbminv.studies.reach import ReachSettings, best_measurements, load_sweep, reach_study
 from tbminv.studies.sweep import run_sweep
 
@@ -90,7 +94,8 @@ def run_drive(readings: str | Path | pd.DataFrame | PreparedReadings, layout: La
     cold : bool
         Start every advance from a homogeneous model.
     shift : str, optional
-        Shift label (default: from the first reading's time, else the advance numbers).
+        Shift label (default: from the time of the first advance not yet stored, else the
+        advance numbers); one the store holds for other advances is an error.
     layout_path : path, optional
         The layout file, kept as text in the store (default: the layout written as TOML).
     progress : bool
@@ -105,7 +110,8 @@ def run_drive(readings: str | Path | pd.DataFrame | PreparedReadings, layout: La
     Returns
     -------
     xarray.Dataset
-        The section of this run (also appended to ``store_path``). ``postprocess_flag`` is
+        The section of this run (also appended to ``store_path``; no advances when every
+        advance of the log is already stored). ``postprocess_flag`` is
         non-zero for advances where the contact fit, DOI or resampling failed (images kept).
 
     Notes
@@ -118,6 +124,15 @@ def run_drive(readings: str | Path | pd.DataFrame | PreparedReadings, layout: La
     done (:class:`tbminv.inversion.journal.Journal`); a crash or kill loses at most the
     advance in progress and the same call again resumes. The journal is removed once the
     shift is in the store.
+
+    Appending a shift continues the drive the store holds (:mod:`tbminv.results.drivestate`):
+    advances the store already holds at the same face chainage are skipped with a logged
+    message, never inverted again (an advance number stored at another face is an error; so is
+    a shift label the store already holds for other advances);
+    the first new advance warm-starts from the last stored model, shifted by the advance; the
+    drive's reference resistivity is kept; and the contact fit's window reaches back into the
+    stored advances' readings, so the shifts give the images and contact fits of one log.
+    To invert stored advances again (other settings), start a new store.
     """
     settings = settings or InversionSettings()
     if isinstance(readings, PreparedReadings):
@@ -135,15 +150,34 @@ def run_drive(readings: str | Path | pd.DataFrame | PreparedReadings, layout: La
                    else _layout_text(layout))
     # the log's bytes when it is a file; else (a DataFrame) the advance data made from it
     readings_sha = file_sha256(source) if Path(source).is_file() else _advances_sha256(data)
-    label = shift or _shift_label(data)
     inverter = DriveInverter(layout, settings)
     ahead, radius = inverter.output_grid()
-    check_appendable(store_path, shift=label, advances=np.array([d.advance for d in data]),
-                     ahead=ahead, transverse=radius,
-                     layout_sha256=hashlib.sha256(layout_text.encode("utf-8")).hexdigest())
+    layout_sha = hashlib.sha256(layout_text.encode("utf-8")).hexdigest()
+    check_appendable(store_path, shift=shift or "", advances=np.array([], int), ahead=ahead,
+                     transverse=radius, layout_sha256=layout_sha)
+    stored = open_section(store_path) if Path(store_path).exists() else None
+    repeated = repeated_advances(stored, advances=np.array([d.advance for d in data]),
+                                 faces_m=np.array([d.face_chainage_m for d in data]),
+                                 source=str(source))
+    if repeated.size:
+        _LOG.warning("%s: advances %s are already in the store %s (same face chainage); they "
+                     "are skipped, not inverted again", source, _ranges(repeated), store_path)
+        data = [d for d in data if d.advance not in set(repeated.tolist())]
+    if not data:
+        _LOG.warning("%s: every advance of the log is already in the store; nothing to invert",
+                     source)
+        _remove_journals_of(store_path, readings_sha)
+        return _empty_section(stored)
+    label = shift or _shift_label(data)
+    if stored is not None and label in set(stored["shift"].values.astype(str)):
+        raise SectionError(f"{store_path}: a shift labelled {label!r} is already stored (other "
+                           "advances); give this shift another label")
+    history = read_history(stored, before_advance=data[0].advance)
+    del stored
     journal = Journal(store_path, {
         "readings_sha256": readings_sha, "advances_sha256": _advances_sha256(data),
         "layout": layout.to_dict(), "settings": settings.to_dict(), "cold": bool(cold),
+        "continues_from": history.signature() if history is not None else None,
         "tbminv_version": tbminv.__version__, "versions": versions()})
     if not resume:
         journal.remove()
@@ -151,8 +185,9 @@ def run_drive(readings: str | Path | pd.DataFrame | PreparedReadings, layout: La
         _LOG.warning("%s: a journal of another run of this store (other inputs or settings) "
                      "is kept; rerun that run to resume it, or delete the folder", other)
     results = inverter.run(data, cold=cold, progress=progress, scheduler=scheduler,
-                           client=client, journal=journal)
+                           client=client, journal=journal, history=history)
     ds = build_section(results, layout_text, repr(settings.to_dict()), readings_sha)
+    ds = add_history(ds, inverter.last_run)
     append_shift(store_path, ds, shift=label)
     if any(r.postprocess_flag & POSTPROCESS_RESAMPLING_FAILED for r in results):
         _LOG.warning("journal %s kept: an advance could not be resampled to the output grid "
@@ -160,6 +195,48 @@ def run_drive(readings: str | Path | pd.DataFrame | PreparedReadings, layout: La
     else:
         journal.remove()
     return ds
+
+
+def _ranges(values: np.ndarray) -> str:
+    """Advance numbers as runs: ``1-3, 7``."""
+    out: list[str] = []
+    vals = sorted(int(v) for v in values)
+    start = prev = vals[0]
+    for v in vals[1:] + [None]:
+        if v is not None and v == prev + 1:
+            prev = v
+            continue
+        out.append(f"{start}-{prev}" if prev > start else f"{start}")
+        if v is not None:
+            start = prev = v
+    return ", ".join(out)
+
+
+def _remove_journals_of(store_path: str | Path, readings_sha: str) -> None:
+    """Delete journals of runs of this readings log (every advance of it is stored).
+
+    Left when a run is stopped between storing its shift and removing its journal.
+    """
+    root = journal_root(store_path)
+    if not root.is_dir():
+        return
+    for folder in sorted(p for p in root.iterdir() if p.is_dir()):
+        try:
+            inputs = json.loads((folder / "inputs.json").read_text(encoding="utf-8"))
+        except (OSError, ValueError):
+            continue
+        if inputs.get("readings_sha256") == readings_sha:
+            _LOG.info("removing %s: a journal of this log, whose advances are all stored", folder)
+            shutil.rmtree(folder, ignore_errors=True)
+    with contextlib.suppress(OSError):
+        root.rmdir()
+
+
+def _empty_section(stored: xr.Dataset | None) -> xr.Dataset:
+    """A section without advances (a log whose advances are all stored already)."""
+    if stored is None:
+        return xr.Dataset(coords={"advance": np.array([], np.int32)})
+    return stored.isel(advance=slice(0, 0))
 
 
 def _check_protocol(prepared: PreparedReadings, layout: Layout) -> None:
@@ -248,6 +325,9 @@ def invert_job(readings_path: str | Path, layout_path: str | Path, store_path: s
     ds = run_drive(readings_path, layout, store_path, settings=settings, qc_settings=qc,
                    cold=cold, layout_path=layout_path, progress=progress, scheduler=scheduler)
     n = ds.sizes["advance"]
+    if n == 0:
+        echo(f"nothing to invert: every advance of {readings_path} is already in {store_path}")
+        return 0
     flagged = int((ds["fit_flag"].values != 0).sum()) if "fit_flag" in ds else 0
     echo(f"inverted {n} advances ({flagged} flagged) -> {store_path}")
     if "contact_ahead_m" in ds:

@@ -27,6 +27,11 @@ on :mod:`tbminv.forward.axisym`).
 * Along the drive each advance starts from the previous model shifted by the advance (the ground
   moves towards the machine), interpolated in log resistivity; ``cold=True`` starts every advance
   from the homogeneous median apparent resistivity.
+* Across shifts: :meth:`DriveInverter.run` takes the stored drive before the new advances
+  (:class:`tbminv.inversion.history.DriveHistory`); the first new advance warm-starts from its
+  last model, the reference resistivity is the drive's, and the running contact fit puts the
+  stored advances' readings into its window, so a drive logged shift by shift gives the same
+  images and contact fits as one log. ``last_run`` holds the new advances' evidence to store.
 * Robust drive run (:meth:`DriveInverter.run`): everything that can fail for the whole drive
   (reference resistivity, surface factors of every advance, the contact table and fitter and
   their use on the data) is built and checked before the first image; with a
@@ -55,6 +60,7 @@ from tbminv.forward.ratio import (
 from tbminv.forward.registry import make_model, model_options_for
 from tbminv.inversion.contactfit import ContactFitter, build_response_table
 from tbminv.inversion.grid import build_parameter_grid
+from tbminv.inversion.history import DriveHistory, grid_signature
 from tbminv.inversion.image import ImageResult, invert_image, shift_model
 from tbminv.inversion.journal import Journal
 from tbminv.inversion.operator import DriveOperator
@@ -99,6 +105,8 @@ class DriveInverter:
         self._k: dict[tuple, np.ndarray] = {}
         self.rho_ref_ohmm: float | None = None
         self._fitter: ContactFitter | None = None
+        self.grid_sha256 = grid_signature(self.grid.x_nodes, self.grid.r_nodes, self.grid.keep)
+        self.last_run: DriveHistory | None = None
 
     def _op_key(self, face: float, ch: float) -> tuple:
         cyl = self.layout.positions_cylindrical(face, ch)
@@ -134,8 +142,8 @@ class DriveInverter:
             model = make_model("axisym", sub, settings=getattr(self.model, "settings", None))
             table = build_response_table(sub, model, rho_ref_ohmm=rho_ref,
                                          settings=self.settings.contact, model_name="axisym")
-            labels = ["/".join(x or "-" for x in q.labels()) for q in sub.measurements]
-            self._fitter = ContactFitter(table, self.settings.contact, labels=labels)
+            self._fitter = ContactFitter(table, self.settings.contact,
+                                         labels=self.contact_labels())
         return self._fitter
 
     def _machine_only_layout(self) -> Layout:
@@ -245,7 +253,8 @@ class DriveInverter:
 
     def run(self, data: Sequence[AdvanceData], *, cold: bool = False,
             progress: bool = False, client: Any | None = None,
-            scheduler: str | None = None, journal: Journal | None = None) -> list[AdvanceResult]:
+            scheduler: str | None = None, journal: Journal | None = None,
+            history: DriveHistory | None = None) -> list[AdvanceResult]:
         """Invert every advance; return :class:`tbminv.inversion.outcome.AdvanceResult` objects.
 
         Parameters
@@ -264,6 +273,11 @@ class DriveInverter:
             Write each advance's image there as soon as it is done, and take the advances it
             already holds from it instead of inverting them again (the warm start continues
             from the last journaled model).
+        history : DriveHistory, optional
+            The stored drive before ``data`` (another shift's advances): the drive's reference
+            resistivity is taken from it, the first advance warm-starts from its last model
+            (when on this parameter grid and not ``cold``) and the contact fit's window
+            reaches back into its advances. Without it the drive starts here.
 
         Notes
         -----
@@ -280,6 +294,12 @@ class DriveInverter:
         distributed = client is not None or bool(scheduler)
         if distributed and not cold:
             raise InversionError(SCHEDULER_NEEDS_COLD)
+        if history is not None and history.n_advances:
+            if self.rho_ref_ohmm is None and math.isfinite(history.reference_resistivity_ohmm):
+                self.rho_ref_ohmm = float(history.reference_resistivity_ohmm)
+            _LOG.info("continuing the drive from %d stored advances (last: advance %d at "
+                      "%.2f m)", history.n_advances, int(history.advances[-1]),
+                      float(history.faces_m[-1]))
         data = self.prepare(data, progress)
         done = journal.load() if journal is not None else {}
         done = {a: img for a, img in done.items() if a in {d.advance for d in data}}
@@ -297,20 +317,32 @@ class DriveInverter:
             by_adv = {**done, **{adv.advance: img for adv, img in zip(todo, imgs)}}
             images = [by_adv[adv.advance] for adv in data]
         else:
-            images = self._run_serial(data, cold, progress, done, keep)
-        contacts, failed = (self._contacts(data) if self.settings.contact_fit
+            start = None if cold or history is None else history.last_model(
+                self.grid_sha256, self.grid.n_param)
+            if history is not None and history.n_advances and not cold and start is None:
+                _LOG.warning("the stored drive holds no model on this parameter grid (other "
+                             "grid settings, or a store of an older version): the first "
+                             "advance starts from a homogeneous model")
+            images = self._run_serial(data, cold, progress, done, keep, start)
+        contacts, failed = (self._contacts(data, history) if self.settings.contact_fit
                             else ([None] * len(data), [False] * len(data)))
+        self.last_run = self._history(data, images)
         return [self._advance_result(adv, img, con, fail)
                 for adv, img, con, fail in zip(data, images, contacts, failed)]
 
     def _run_serial(self, data: Sequence[AdvanceData], cold: bool, progress: bool,
                     done: dict[int, ImageResult],
-                    keep: Callable[[AdvanceData, ImageResult], None]) -> list[ImageResult]:
-        """Advances in order, each warm-started from the previous one (journaled or new)."""
+                    keep: Callable[[AdvanceData, ImageResult], None],
+                    start: tuple[np.ndarray, float] | None = None) -> list[ImageResult]:
+        """Advances in order, each warm-started from the previous one (journaled or new).
+
+        ``start`` is the model (ohm-m) and face chainage (m) of the advance before the first,
+        e.g. the last stored one of the drive; None starts the first advance cold.
+        """
         from tqdm.auto import tqdm  # late: the progress-bar package is needed only here
 
         imgs = []
-        prev_model = prev_face = None
+        prev_model, prev_face = start if start is not None else (None, None)
         for adv in tqdm(data, disable=not progress, desc="advances", unit="advance"):
             img = done.get(adv.advance)
             if img is None:
@@ -356,6 +388,11 @@ class DriveInverter:
             if own is not None:
                 own.close()
 
+    def contact_labels(self) -> list[str]:
+        """``a/b/m/n`` labels (``-`` for a pole) of the readings the contact fit uses."""
+        return ["/".join(x or "-" for x in q.labels())
+                for q in self._machine_only_layout().measurements]
+
     def _contact_data(self, data: Sequence[AdvanceData]
                       ) -> tuple[np.ndarray, np.ndarray, list[float]]:
         """Readings of the machine-only layout per advance: r (ohm), rel. error, faces (m)."""
@@ -365,13 +402,38 @@ class DriveInverter:
         e = np.array([d.rel_error[sub] for d in data]).reshape(len(data), len(sub))
         return r, e, [d.face_chainage_m for d in data]
 
-    def _contacts(self, data: Sequence[AdvanceData]) -> tuple[list[ContactFit | None],
-                                                               list[bool]]:
-        """Running joint contact fit; per advance the fit (or None) and whether it failed."""
+    def _history(self, data: Sequence[AdvanceData], images: Sequence[ImageResult]
+                 ) -> DriveHistory:
+        """The evidence of this run's advances, to be stored for the next shift."""
+        r, e, faces = self._contact_data(data)
+        models = np.array([np.asarray(img.model_ohmm, float) for img in images])
+        return DriveHistory(
+            advances=np.array([d.advance for d in data], int), faces_m=np.asarray(faces, float),
+            contact_labels=tuple(self.contact_labels()), contact_r_ohm=r, contact_rel_error=e,
+            models_ohmm=models.reshape(len(data), -1), grid_sha256=self.grid_sha256,
+            reference_resistivity_ohmm=float(self.rho_ref_ohmm or math.nan))
+
+    def _contacts(self, data: Sequence[AdvanceData], history: DriveHistory | None = None
+                  ) -> tuple[list[ContactFit | None], list[bool]]:
+        """Running joint contact fit; per advance the fit (or None) and whether it failed.
+
+        With ``history`` the window of the first advances reaches back into the stored
+        advances (the last ``window - 1`` of them, the most any window of the fit spans; all
+        of them without a ``window`` setting), so each advance's fit is the one a single run
+        over the whole drive gives it.
+        """
         try:
             fitter = self.contact_fitter(self.rho_ref_ohmm or 100.0)
             r, e, faces = self._contact_data(data)
-            est = fitter.fit_drive(r, e, faces, skip_unusable=True)
+            n_prior = 0
+            if history is not None and history.n_advances:
+                span = getattr(self.settings.contact, "window", None)  # advances per window
+                prior = history.tail(int(span) - 1) if span else history
+                rp, ep = prior.contact_columns(self.contact_labels())
+                n_prior = prior.n_advances
+                r, e = np.vstack([rp, r]), np.vstack([ep, e])
+                faces = [float(f) for f in prior.faces_m] + list(faces)
+            est = fitter.fit_drive(r, e, faces, skip_unusable=True)[n_prior:]
         except Exception as exc:  # noqa: BLE001 - degrade: the images stand without it
             _LOG.warning("contact fit failed for all %d advances (images kept): %s: %s",
                          len(data), type(exc).__name__, exc)

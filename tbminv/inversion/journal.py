@@ -10,7 +10,8 @@ store::
 
 ``key`` is a hash of everything the images depend on: the readings (file bytes and the
 advance data made from them), the layout, the inversion and QC settings, the start mode
-(warm or cold) and the versions of tbminv, pyGIMLi and pgcore. A crash or a kill loses at most
+(warm or cold), the stored drive the run continues from (its last model and the readings of
+the contact window) and the versions of tbminv, pyGIMLi and pgcore. A crash or a kill loses at most
 the advance in progress; the same command again finds the journal of the same key, skips the
 advances it holds and warm-starts from the last of them. Another key (other inputs or
 settings) gets its own folder and never mixes in. The journal of a key is removed once its

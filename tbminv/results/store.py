@@ -244,6 +244,11 @@ def append_shift(store_path: str | os.PathLike[str], ds: xr.Dataset, shift: str)
                      "n_data", "n_used"):
             if name in merged and merged[name].dtype.kind == "f":  # concat may promote
                 merged[name] = merged[name].fillna(0).astype(ds[name].dtype)
+        for name in list(merged.data_vars):  # text missing in one part (older stores): empty
+            if merged[name].dtype.kind == "O":
+                merged[name] = merged[name].copy(data=np.vectorize(
+                    lambda v: v if isinstance(v, str) else "", otypes=[object])(
+                        merged[name].values))
         with atomic_path(store) as tmp:
             _write_dataset(merged, tmp)
     _LOG.info("store %s: shift %s written (%d advances)", store, shift, new.sizes["advance"])
