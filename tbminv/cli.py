@@ -33,7 +33,7 @@ from tbminv.demo import run_demo
 from tbminv.forward.registry import MODEL_NAMES, MODEL_SETTINGS_CHOICES
 from tbminv.ground import NotAxisymmetricError, ScenarioError, load_scenario
 from tbminv.inversion.outcome import SectionError
-from tbminv.inversion.settings import InversionError
+from tbminv.inversion.settings import InversionError, load_settings
 from tbminv.jobs import invert_job, reach_job, report_job, run_check
 from tbminv.layout import LayoutError, load_layout
 from tbminv.materials import MaterialTableError
@@ -119,7 +119,8 @@ def cmd_check(args: argparse.Namespace) -> int:
     """Run ``tbminv check``."""
     layout = load_layout(args.layout)
     settings = QCSettings.from_toml(args.settings) if args.settings else None
-    result = run_check(args.readings, layout, args.out, settings)
+    floor = load_settings(args.settings)[0].model_error_floor   # [invert], shown in the flags
+    result = run_check(args.readings, layout, args.out, settings, model_error_floor=floor)
     for line in result.describe():
         print(line)
     return 0 if result.usable else 1

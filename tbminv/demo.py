@@ -57,7 +57,9 @@ def run_demo(out_dir: Path, echo: Callable[[str], None] | None = None) -> int:
     store = out / "section.nc"
     inv_settings, qc_settings = load_settings(demo_settings_path())
     echo(f"  settings: {demo_settings_path()}")
-    result = run_check(readings, layout, out / "check", qc_settings)
+    result = run_check(readings, layout, out / "check", qc_settings,
+                       model_error_floor=inv_settings.model_error_floor,
+                       forward_settings=inv_settings.forward_settings)
     for line in result.describe():
         echo(f"  check: {line}")
     if not result.usable:

@@ -22,7 +22,8 @@ import xarray as xr
 
 import tbminv
 from tbminv.cache import atomic_path, atomic_write_text
-from tbminv.forward.registry import model_options_for
+from tbminv.forward.ratio import homogeneous_response
+from tbminv.forward.registry import make_model, model_options_for
 from tbminv.gimli import versions
 from tbminv.inversion.drive import DriveInverter
 from tbminv.inversion.journal import Journal, journal_root
@@ -43,7 +44,12 @@ from tbminv.materials import load_material_table
 from tbminv.plots.qc import write_figure
 from tbminv.plots.reach import plot_reach_map, plot_response_vs_distance
 from tbminv.plots.section import save_figure
-from tbminv.readings.advance import AdvanceData, PreparedReadings, prepare_advances
+from tbminv.readings.advance import (
+    AdvanceData,
+    ExpectedSign,
+    PreparedReadings,
+    prepare_advances,
+)
 from tbminv.readings.qc import QCResult, QCSettings, _json, summary_text
 from tbminv.readings.reader import Readings
 from tbminv.report import write_report
@@ -58,6 +64,55 @@ _LOG = logging.getLogger(__name__)
 
 
 # ------------------------------------------------------------------------ files, CLI
+SIGN_NULL_FRACTION = 1e-3
+"""A homogeneous response below this fraction of the median |response| has no reliable sign:
+such quadrupoles are not checked for a negative apparent resistivity."""
+
+
+def homogeneous_sign(response: Callable[[float, float], np.ndarray]) -> ExpectedSign:
+    """Sign of each protocol quadrupole's response in a homogeneous ground, per face and angle.
+
+    Parameters
+    ----------
+    response : callable
+        ``(face_chainage_m, cutterhead_deg) ->`` the homogeneous response per protocol
+        quadrupole (transfer resistances or ``1 / k``: only the sign is used, and it does not
+        depend on the resistivity), e.g. :func:`model_homogeneous`.
+
+    Returns
+    -------
+    callable
+        :data:`tbminv.readings.advance.ExpectedSign`. Responses within
+        :data:`SIGN_NULL_FRACTION` of the median magnitude are near a null: sign 0 (unknown).
+    """
+    def sign(face_chainage_m: float, cutterhead_deg: float) -> np.ndarray:
+        r = np.asarray(response(face_chainage_m, cutterhead_deg), float)
+        mag = np.abs(r[np.isfinite(r)])
+        ref = float(np.median(mag)) if mag.size else 0.0
+        out = np.sign(r)
+        out[~np.isfinite(r) | (np.abs(r) <= SIGN_NULL_FRACTION * ref)] = 0.0
+        return out
+
+    return sign
+
+
+def model_homogeneous(model: Any) -> Callable[[float, float], np.ndarray]:
+    """A model's homogeneous response at 100 ohm-m per face and angle (cached on disk)."""
+    def response(face_chainage_m: float, cutterhead_deg: float) -> np.ndarray:
+        return homogeneous_response(model, 100.0, face_chainage_m, cutterhead_deg)
+
+    return response
+
+
+def qc_folder(store_path: str | Path, readings_path: str | Path) -> Path:
+    """Folder of ``quarantine.csv`` and ``qc_flags.csv`` of an ``invert`` run.
+
+    ``<store>.qc/<readings log name without suffix>/`` beside the store.
+    """
+    store = Path(store_path)
+    return store.with_name(store.name + ".qc") / Path(readings_path).stem
+
+
 def file_sha256(path: str | Path) -> str:
     """SHA-256 of a file's bytes."""
     h = hashlib.sha256()
@@ -90,7 +145,9 @@ def run_drive(readings: str | Path | pd.DataFrame | PreparedReadings, layout: La
     settings, qc_settings : optional
         Inversion and QC settings (QC only when ``readings`` is a path).
     out_dir : path, optional
-        Folder for the quarantine file (when ``readings`` is a path).
+        Folder for ``quarantine.csv`` and ``qc_flags.csv`` (when ``readings`` is a path or a
+        DataFrame; ``tbminv invert`` uses :func:`qc_folder`). Readings are checked for a
+        negative apparent resistivity against the sign of the images' geometric factors.
     cold : bool
         Start every advance from a homogeneous model.
     shift : str, optional
@@ -135,11 +192,16 @@ def run_drive(readings: str | Path | pd.DataFrame | PreparedReadings, layout: La
     To invert stored advances again (other settings), start a new store.
     """
     settings = settings or InversionSettings()
+    inverter = DriveInverter(layout, settings)
     if isinstance(readings, PreparedReadings):
         prepared = readings
     else:
+        def inverse_k(face_m: float, angle_deg: float) -> np.ndarray:   # sign of the image's k
+            return 1.0 / inverter.geometric_factors(face_m, angle_deg, 100.0)
+
         prepared = prepare_advances(readings, layout, qc_settings or QCSettings(),
-                                    out_dir=out_dir)
+                                    out_dir=out_dir, expected_sign=homogeneous_sign(inverse_k),
+                                    model_error_floor=settings.model_error_floor)
     source = prepared.source
     _check_protocol(prepared, layout)
     data = [d for d in prepared.advances if np.isfinite(d.r_ohm).sum() >= 3]
@@ -150,7 +212,6 @@ def run_drive(readings: str | Path | pd.DataFrame | PreparedReadings, layout: La
                    else _layout_text(layout))
     # the log's bytes when it is a file; else (a DataFrame) the advance data made from it
     readings_sha = file_sha256(source) if Path(source).is_file() else _advances_sha256(data)
-    inverter = DriveInverter(layout, settings)
     ahead, radius = inverter.output_grid()
     layout_sha = hashlib.sha256(layout_text.encode("utf-8")).hexdigest()
     check_appendable(store_path, shift=shift or "", advances=np.array([], int), ahead=ahead,
@@ -309,6 +370,8 @@ def invert_job(readings_path: str | Path, layout_path: str | Path, store_path: s
     echo : callable, optional
         Where the lines for the user go (the command line passes ``print``).
 
+    The quarantine and the per-reading QC flags go to :func:`qc_folder`.
+
     Returns
     -------
     int
@@ -322,8 +385,11 @@ def invert_job(readings_path: str | Path, layout_path: str | Path, store_path: s
         raise InversionError(SCHEDULER_NEEDS_COLD)
     layout = load_layout(layout_path)
     settings, qc = load_settings(settings_path)
+    folder = qc_folder(store_path, readings_path)
     ds = run_drive(readings_path, layout, store_path, settings=settings, qc_settings=qc,
-                   cold=cold, layout_path=layout_path, progress=progress, scheduler=scheduler)
+                   out_dir=folder, cold=cold, layout_path=layout_path, progress=progress,
+                   scheduler=scheduler)
+    echo(f"quarantine and per-reading QC flags -> {folder}")
     n = ds.sizes["advance"]
     if n == 0:
         echo(f"nothing to invert: every advance of {readings_path} is already in {store_path}")
@@ -362,8 +428,8 @@ class CheckResult:
     n_read, n_kept, n_quarantined, n_valid : int
         Rows read, kept by the reader, quarantined, and valid after QC.
     paths : dict
-        Output name -> path (``quarantine``, ``summary_txt``, ``summary_json``, ``figure_png``,
-        ``figure_pdf``).
+        Output name -> path (``quarantine``, ``qc_flags``, ``summary_txt``, ``summary_json``,
+        ``figure_png``, ``figure_pdf``).
     summary : dict
         The content of qc_summary.json.
     prepared : PreparedReadings
@@ -397,6 +463,10 @@ class CheckResult:
         flags = ", ".join(f"{k} {v}" for k, v in q["flags"].items() if v)
         if flags:
             out.append(f"flags: {flags}")
+        if self.prepared.n_negative_rhoa is not None:
+            out.append(f"{self.prepared.n_negative_rhoa} readings with a negative apparent "
+                       "resistivity (flagged negative_rhoa: kept in qc_flags.csv, left out of "
+                       "the image and the contact fit)")
         src = ", ".join(f"{k} {v}" for k, v in q["error_models_by_source"].items())
         out.append(f"error models per {q['error_model_group']}: {src or 'none'}")
         for name, path in self.paths.items():
@@ -411,12 +481,14 @@ class CheckResult:
 
 
 def run_check(readings_path: str | os.PathLike[str] | pd.DataFrame, layout: Layout,
-              out_dir: str | os.PathLike[str], settings: QCSettings | None = None
-              ) -> CheckResult:
-    """Read, check and QC a readings log; write the quarantine, summary and figure.
+              out_dir: str | os.PathLike[str], settings: QCSettings | None = None, *,
+              model_error_floor: float | None = None, sign_check: bool = True,
+              forward_settings: str = "fast") -> CheckResult:
+    """Read, check and QC a readings log; write the quarantine, flags, summary and figure.
 
-    Writes into ``out_dir``: ``quarantine.csv``, ``qc_summary.txt``, ``qc_summary.json``,
-    ``qc.png`` and ``qc.pdf`` (each written atomically).
+    Writes into ``out_dir``: ``quarantine.csv``, ``qc_flags.csv`` (one row per reading: error
+    components and flags), ``qc_summary.txt``, ``qc_summary.json``, ``qc.png`` and ``qc.pdf``
+    (each written atomically).
 
     Parameters
     ----------
@@ -428,6 +500,15 @@ def run_check(readings_path: str | os.PathLike[str] | pd.DataFrame, layout: Layo
         Output folder (created if missing).
     settings : QCSettings, optional
         Defaults: :class:`QCSettings`.
+    model_error_floor : float, optional
+        Relative modelling-error floor shown in ``qc_flags.csv`` (``[invert]
+        model_error_floor``, which the inversion adds; default: its default).
+    sign_check : bool
+        Flag readings with a negative apparent resistivity, against the sign of the
+        axisymmetric model's homogeneous response (one cached forward run per face when
+        electrodes are fixed in the ground, else one).
+    forward_settings : str
+        Preset of that model (``fast`` or ``standard``).
 
     Returns
     -------
@@ -440,10 +521,17 @@ def run_check(readings_path: str | os.PathLike[str] | pd.DataFrame, layout: Layo
         When the log cannot be read at all (nothing is written then).
     """
     settings = settings or QCSettings()
+    floor = (InversionSettings().model_error_floor if model_error_floor is None
+             else model_error_floor)
     out = Path(out_dir)
-    prepared = prepare_advances(readings_path, layout, settings, out_dir=out)
+    sign = None
+    if sign_check:
+        sign = homogeneous_sign(model_homogeneous(make_model(
+            "axisym", layout, **model_options_for("axisym", forward_settings))))
+    prepared = prepare_advances(readings_path, layout, settings, out_dir=out,
+                                expected_sign=sign, model_error_floor=floor)
     readings, qc = prepared.readings, prepared.qc
-    paths = {"quarantine": prepared.quarantine_path}
+    paths = {"quarantine": prepared.quarantine_path, "qc_flags": prepared.flags_path}
     summary = {"readings_log": readings.summary.to_dict(), "qc": qc.summary()}
     n_valid = summary["qc"]["valid"]
     summary["usable"] = bool(n_valid > 0)
@@ -607,5 +695,6 @@ def report_job(store_path: str | Path, out_dir: str | Path, *,
     return 0
 
 
-__all__ = ["EXIT_PARTIAL", "file_sha256", "run_drive", "invert_job", "CheckResult", "run_check",
+__all__ = ["EXIT_PARTIAL", "SIGN_NULL_FRACTION", "homogeneous_sign", "model_homogeneous",
+           "qc_folder", "file_sha256", "run_drive", "invert_job", "CheckResult", "run_check",
            "reach_job", "report_job"]

@@ -12,9 +12,12 @@ on :mod:`tbminv.forward.axisym`).
   coarser than the forward mesh, built once per layout; its lines follow the machine and tunnel
   edges so the steel and the bore are left out (fixed regions, never inverted). It reaches the
   forward domain's edge with growing cells, so every forward ground cell belongs to one parameter.
-* Data weights come from the QC error model only. ``err_ohm`` there estimates the standard
-  deviation of the normal-reciprocal difference, so one reading has ``err / sqrt(2)`` and the
-  mean of a pair ``err / 2``. Readings without an error model are not inverted.
+* Data weights come from the QC error model and a modelling-error floor. ``err_ohm`` of the QC
+  estimates the root mean square of the normal-reciprocal difference, so one reading has
+  ``err / sqrt(2)`` and the mean of a pair ``err / 2``; the relative floor
+  ``[invert] model_error_floor`` (forward accuracy and surface-correction residual, measured in
+  ``bench/bench_error_floor.py``) is added in quadrature per quadrupole in :meth:`prepare`.
+  Readings without an error model are not inverted.
 * lambda rules (``InversionSettings.lambda_rule``): ``cooling`` (default: start at ``lam``,
   multiply by ``lambda_factor`` each iteration, stop at chi-squared 1 — an Occam-style descent,
   Constable et al. 1987, Geophysics 52(3):289-300), ``fixed`` and ``lcurve`` (the corner of
@@ -73,6 +76,7 @@ from tbminv.inversion.outcome import (
 from tbminv.inversion.settings import SCHEDULER_NEEDS_COLD, InversionError, InversionSettings
 from tbminv.layout import Layout
 from tbminv.readings.advance import AdvanceData
+from tbminv.readings.errorfloor import with_error_floor
 
 _LOG = logging.getLogger(__name__)
 
@@ -199,8 +203,11 @@ class DriveInverter:
         """Build and check everything the drive needs before its first image.
 
         Sets the reference resistivity (from the first advance), applies the surface
-        correction to every advance (3D runs, cached) and, with ``contact_fit``, builds the
-        contact table and fitter and checks that some advance has readings it can use.
+        correction to every advance (3D runs, cached), adds the modelling-error floor
+        ``[invert] model_error_floor`` in quadrature to every reading's QC error
+        (:func:`tbminv.readings.errorfloor.with_error_floor`; both the images and the contact
+        fit see it) and, with ``contact_fit``, builds the contact table and fitter and checks
+        that some advance has readings it can use.
 
         Parameters
         ----------
@@ -212,7 +219,8 @@ class DriveInverter:
         Returns
         -------
         list of AdvanceData
-            The advances as the images and the contact fit see them (surface-corrected).
+            The advances as the images and the contact fit see them (surface-corrected,
+            error floor added).
 
         Raises
         ------
@@ -232,6 +240,7 @@ class DriveInverter:
                 raise InversionError(f"surface correction (3D homogeneous factors) failed: "
                                      f"{exc}; set [invert] surface_correction = false to invert "
                                      "without it") from exc
+        data = with_error_floor(data, self.settings.model_error_floor)
         if self.settings.contact_fit:
             try:
                 fitter = self.contact_fitter(self.rho_ref_ohmm or 100.0)

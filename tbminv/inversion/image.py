@@ -65,8 +65,13 @@ def invert_image(op: DriveOperator, data: AdvanceData, k: np.ndarray,
     """
     t0 = time.perf_counter()
     rhoa = k * data.r_ohm
-    sel = np.nonzero(np.isfinite(rhoa) & (rhoa > 0) & np.isfinite(data.rel_error)
-                     & (data.rel_error > 0))[0]
+    usable = np.isfinite(rhoa) & np.isfinite(data.rel_error) & (data.rel_error > 0)
+    negative = usable & ~(rhoa > 0)
+    if negative.any():   # log data: a negative apparent resistivity cannot be inverted
+        _LOG.warning("advance %d: %d readings with a negative apparent resistivity are left "
+                     "out of the image (quadrupoles %s)", data.advance, int(negative.sum()),
+                     ", ".join(str(i) for i in np.nonzero(negative)[0][:10]))
+    sel = np.nonzero(usable & (rhoa > 0))[0]
     if sel.size < 3:
         raise InversionError(f"advance {data.advance}: {sel.size} usable readings; at least 3 "
                              "are needed")

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import dataclasses
 import logging
+import math
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -19,6 +20,13 @@ LAMBDA_RULES = ("cooling", "fixed", "lcurve")
 
 SCHEDULER_NEEDS_COLD = ("--scheduler runs independent inversions: add --cold (the warm start "
                         "makes each advance wait for the previous one)")
+
+
+DEFAULT_MODEL_ERROR_FLOOR = 0.006
+"""Default relative modelling-error floor: the axisymmetric model's RMS difference from
+pyGIMLi's 3D model (``fast`` preset, the worse) with what the surface correction leaves at 2 and
+5 D cover beyond a common scale, in quadrature, rounded up to 0.1 %; measured with this
+project's models (``bench/results/error_floor.json``; DEVELOPERS.md, "Error model")."""
 
 
 class InversionError(ValueError):
@@ -57,6 +65,13 @@ class InversionSettings:
         Growth factor of the cells outside the fine grid.
     lower_ohmm, upper_ohmm : float
         Bounds of the log-bounded model transform, ohm-m.
+    model_error_floor : float
+        Relative modelling-error floor (fraction) added in quadrature to every reading's QC
+        error, ``e = sqrt(e_qc^2 + floor^2)``, before the images and the contact fit
+        (:mod:`tbminv.readings.errorfloor`). Default :data:`DEFAULT_MODEL_ERROR_FLOOR`. It
+        covers per-reading model error only; the common scale the surface correction leaves on
+        all readings of an advance (3-5 % at 2-5 D cover) is not in it. 0: the QC error
+        alone.
     chi2_flag : float
         chi-squared above which a result is flagged. A result is also flagged when it did
         not converge: ``max_iter`` reached while chi-squared still moved by more than
@@ -98,6 +113,7 @@ class InversionSettings:
     growth: float = 1.35
     lower_ohmm: float = 0.1
     upper_ohmm: float = 1e5
+    model_error_floor: float = DEFAULT_MODEL_ERROR_FLOOR
     chi2_flag: float = 2.0
     warm_start: bool = True
     surface_correction: bool = True
@@ -116,6 +132,11 @@ class InversionSettings:
             raise InversionError("[invert] lam must be > 0 and 0 < lambda_factor <= 1")
         if not 0 < self.lower_ohmm < self.upper_ohmm:
             raise InversionError("[invert] expected 0 < lower_ohmm < upper_ohmm")
+        v = self.model_error_floor
+        if (isinstance(v, bool) or not isinstance(v, (int, float)) or not math.isfinite(v)
+                or not 0 <= v < 1):
+            raise InversionError(f"[invert] model_error_floor = {v!r}: expected a fraction "
+                                 "0 <= floor < 1 (0.01 = 1 %)")
 
     def to_dict(self) -> dict[str, Any]:
         """Plain dictionary (for the store's provenance)."""
@@ -164,5 +185,5 @@ def load_settings(path: str | Path | None) -> tuple[InversionSettings, QCSetting
     return settings, qc
 
 
-__all__ = ["LAMBDA_RULES", "SCHEDULER_NEEDS_COLD", "InversionError", "InversionSettings",
-           "load_settings"]
+__all__ = ["DEFAULT_MODEL_ERROR_FLOOR", "LAMBDA_RULES", "SCHEDULER_NEEDS_COLD", "InversionError",
+           "InversionSettings", "load_settings"]

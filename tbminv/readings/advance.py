@@ -2,7 +2,11 @@
 
 :func:`prepare_advances` is the one path from a readings log (file or DataFrame) to them: read
 and quarantine (:mod:`tbminv.readings.reader`), QC and error model (:mod:`tbminv.readings.qc`),
-then per advance (:func:`advance_data`).
+then per advance (:func:`advance_data`). Where the caller knows the sign of each protocol
+quadrupole's response in a homogeneous ground (from a forward model), readings of the opposite
+sign -- a negative apparent resistivity -- are flagged ``negative_rhoa`` and counted
+(:func:`flag_negative_apparent`); ``quarantine.csv`` and ``qc_flags.csv``
+(:mod:`tbminv.readings.flagfile`) go to the output folder.
 """
 
 from __future__ import annotations
@@ -10,6 +14,7 @@ from __future__ import annotations
 import logging
 import math
 import os
+from collections.abc import Callable
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -17,7 +22,9 @@ import numpy as np
 import pandas as pd
 
 from tbminv.layout import Layout, Measurement
-from tbminv.readings.qc import QCResult, QCSettings, run_qc
+from tbminv.readings.errorfloor import check_floor
+from tbminv.readings.flagfile import write_qc_flags
+from tbminv.readings.qc import Flag, QCResult, QCSettings, run_qc
 from tbminv.readings.reader import FRAME_LABEL, Readings, read_readings
 
 _LOG = logging.getLogger(__name__)
@@ -76,19 +83,10 @@ def advance_data(qc_table: pd.DataFrame, layout: Layout) -> list[AdvanceData]:
         One per advance in the table, in increasing advance order.
     """
     quads = layout.measurements
-    index: dict[tuple, int] = {}
-    for i, q in enumerate(quads):
-        index[_fix_key(q, layout)] = i
-        index.setdefault(_fix_key(q.reciprocal(), layout), i)
     n = len(qc_table)
     if n == 0:
         return []
-    pole = {e.label for e in layout.electrodes if e.at_infinity}
-    keys = pd.DataFrame({c: _key_column(qc_table[c], pole) for c in "abmn"})
-    table = pd.DataFrame([tuple("" if x is None else x for x in k) for k in index],
-                         columns=list("abmn"))
-    table["q"] = list(index.values())
-    quad = keys.merge(table, on=list("abmn"), how="left")["q"].to_numpy(float)
+    quad = protocol_index(qc_table, layout)
     err = qc_table["err_ohm"].to_numpy(float) / math.sqrt(2.0)
     valid = qc_table["valid"].to_numpy(bool) & np.isfinite(err)
     unknown = int((valid & np.isnan(quad)).sum())
@@ -130,6 +128,84 @@ def advance_data(qc_table: pd.DataFrame, layout: Layout) -> list[AdvanceData]:
     return out
 
 
+def protocol_index(qc_table: pd.DataFrame, layout: Layout) -> np.ndarray:
+    """Index of each reading's quadrupole in the layout's protocol (NaN: not in it).
+
+    A reciprocal (current and potential pairs swapped, as :meth:`Measurement.reciprocal`)
+    maps to the index of its normal; a dipole logged the other way round does not match.
+    """
+    index: dict[tuple, int] = {}
+    for i, q in enumerate(layout.measurements):
+        index[_fix_key(q, layout)] = i
+        index.setdefault(_fix_key(q.reciprocal(), layout), i)
+    if len(qc_table) == 0:
+        return np.zeros(0)
+    pole = {e.label for e in layout.electrodes if e.at_infinity}
+    keys = pd.DataFrame({c: _key_column(qc_table[c], pole) for c in "abmn"})
+    table = pd.DataFrame([tuple("" if x is None else x for x in k) for k in index],
+                         columns=list("abmn"))
+    table["q"] = list(index.values())
+    return keys.merge(table, on=list("abmn"), how="left")["q"].to_numpy(float)
+
+
+ExpectedSign = Callable[[float, float], np.ndarray]
+"""``(face_chainage_m, cutterhead_deg) -> sign`` of each protocol quadrupole's response in a
+homogeneous ground (+1, -1; 0 or NaN: unknown), e.g. from a forward model's homogeneous run."""
+
+
+def flag_negative_apparent(qc: QCResult, layout: Layout, expected_sign: ExpectedSign) -> int:
+    """Flag readings whose apparent resistivity is negative; return how many.
+
+    A reading's apparent resistivity ``k R`` is negative when ``R`` has the sign opposite to
+    the same quadrupole's response in a homogeneous ground (the sign of its geometric factor
+    ``k``). By reciprocity a reciprocal reading has the sign of its normal. Such readings get
+    :attr:`Flag.NEGATIVE_RHOA` and ``valid = False`` in ``qc.table`` (changed in place): kept,
+    counted and written to the flags file, left out of the image inversion and the contact
+    fit, which fit log apparent resistivity.
+
+    Parameters
+    ----------
+    qc : QCResult
+    layout : Layout
+    expected_sign : callable
+        See :data:`ExpectedSign`; called once per advance with its median face and angle.
+
+    Returns
+    -------
+    int
+        Readings flagged.
+    """
+    t = qc.table
+    qc.sign_checked = True
+    if len(t) == 0:
+        return 0
+    quad = protocol_index(t, layout)
+    r = t["r_ohm"].to_numpy(float)
+    neg = np.zeros(len(t), bool)
+    per = t.groupby("advance", sort=True)
+    face = per["face_chainage_m"].median()
+    angle = (per["cutterhead_deg"].median().fillna(0.0) if "cutterhead_deg" in t
+             else pd.Series(0.0, index=face.index))
+    for adv, rows in per.indices.items():
+        sign = np.asarray(expected_sign(float(face[adv]), float(angle[adv])), float)
+        q = quad[rows]
+        inp = np.isfinite(q)
+        s = np.full(len(rows), np.nan)
+        s[inp] = sign[q[inp].astype(np.int64)]
+        with np.errstate(invalid="ignore"):
+            neg[rows] = np.isfinite(s) & (s != 0) & (np.sign(r[rows]) * s < 0)
+    flags = t["qc_flags"].to_numpy(np.int64).copy()
+    flags[neg] |= int(Flag.NEGATIVE_RHOA)
+    t["qc_flags"] = flags
+    t["valid"] = flags == 0
+    count = int(neg.sum())
+    if count:
+        _LOG.warning("%d readings have a negative apparent resistivity (sign against a "
+                     "homogeneous ground); flagged negative_rhoa, left out of the image and "
+                     "the contact fit", count)
+    return count
+
+
 def _key_column(col: pd.Series, poles: set[str]) -> np.ndarray:
     """Labels of one column as text, with "" for a pole (empty or a remote at infinity)."""
     text = col.astype(object).where(col.notna(), "").astype(str).to_numpy(object)
@@ -160,6 +236,10 @@ class PreparedReadings:
         The log's path, or the label of a DataFrame.
     quarantine_path : Path or None
         Where the quarantine table was written (None: not written).
+    flags_path : Path or None
+        Where the per-reading flags file ``qc_flags.csv`` was written (None: not written).
+    n_negative_rhoa : int or None
+        Readings with a negative apparent resistivity (None: not checked, no sign given).
     """
 
     readings: Readings
@@ -167,12 +247,15 @@ class PreparedReadings:
     advances: list[AdvanceData]
     source: str
     quarantine_path: Path | None = None
+    flags_path: Path | None = None
+    n_negative_rhoa: int | None = None
 
 
 def prepare_advances(source: str | os.PathLike[str] | pd.DataFrame, layout: Layout,
                      qc_settings: QCSettings | None = None, *,
                      out_dir: str | os.PathLike[str] | None = None,
-                     label: str = FRAME_LABEL) -> PreparedReadings:
+                     label: str = FRAME_LABEL, expected_sign: ExpectedSign | None = None,
+                     model_error_floor: float = 0.0) -> PreparedReadings:
     """Read, quarantine, QC and group a readings log by advance.
 
     Parameters
@@ -185,9 +268,17 @@ def prepare_advances(source: str | os.PathLike[str] | pd.DataFrame, layout: Layo
     qc_settings : QCSettings, optional
         Defaults: :class:`QCSettings`.
     out_dir : path-like, optional
-        Folder for ``quarantine.csv`` (created if missing; written atomically).
+        Folder for ``quarantine.csv`` and ``qc_flags.csv`` (created if missing; written
+        atomically).
     label : str
         Name of a DataFrame source in the quarantine and the summary.
+    expected_sign : callable, optional
+        Sign of each protocol quadrupole's homogeneous response (:data:`ExpectedSign`):
+        readings of the other sign are flagged ``negative_rhoa``
+        (:func:`flag_negative_apparent`). None: not checked.
+    model_error_floor : float
+        Relative modelling-error floor shown in ``qc_flags.csv`` (the inversion adds it to the
+        advance data, :func:`tbminv.readings.errorfloor.with_error_floor`; not added here).
 
     Returns
     -------
@@ -199,8 +290,9 @@ def prepare_advances(source: str | os.PathLike[str] | pd.DataFrame, layout: Layo
     tbminv.readings.reader.ReadingsError
         When the log cannot be read at all (nothing is written then).
     """
+    floor = check_floor(model_error_floor)
     readings = read_readings(source, layout, label=label)
-    qpath = None
+    qpath = fpath = None
     if out_dir is not None:
         Path(out_dir).mkdir(parents=True, exist_ok=True)
         qpath = readings.write_quarantine(out_dir)
@@ -208,9 +300,17 @@ def prepare_advances(source: str | os.PathLike[str] | pd.DataFrame, layout: Layo
         _LOG.warning("%s: %d of %d rows quarantined", readings.source,
                      readings.summary.rows_quarantined, readings.summary.rows_read)
     qc = run_qc(readings, qc_settings or QCSettings())
+    n_neg = None
+    if expected_sign is not None:
+        n_neg = flag_negative_apparent(qc, layout, expected_sign)
+    if out_dir is not None:
+        fpath = write_qc_flags(qc.table, out_dir, source=readings.source,
+                               model_error_floor=floor)
     advances = [d for d in advance_data(qc.table, layout) if np.isfinite(d.r_ohm).any()]
     return PreparedReadings(readings=readings, qc=qc, advances=advances,
-                            source=readings.source, quarantine_path=qpath)
+                            source=readings.source, quarantine_path=qpath, flags_path=fpath,
+                            n_negative_rhoa=n_neg)
 
 
-__all__ = ["AdvanceData", "PreparedReadings", "advance_data", "prepare_advances"]
+__all__ = ["AdvanceData", "ExpectedSign", "PreparedReadings", "advance_data",
+           "flag_negative_apparent", "prepare_advances", "protocol_index"]

@@ -4,13 +4,19 @@ What is computed, per reading of a :class:`tbminv.readings.reader.Readings` tabl
 
 * ``r_ohm``: transfer resistance ``voltage_v / current_a``, ohm.
 * Reciprocal pairs, found automatically within one advance: the current and potential dipoles
-  swapped (A,B <-> M,N; orientation of each dipole ignored, as in pyGIMLi's
-  ``uniqueERTIndex(unify=True)``, which builds the keys here). Reciprocal error
-  ``|2(|Rn| - |Rr|) / (|Rn| + |Rr|)|`` (LaBrecque et al. 1996, Geophysics 61(2):538-548);
-  magnitudes are compared, so a pair logged with opposite polarity is still a pair.
-* Stacking error ``voltage_std_v / sqrt(stack_n)`` (standard error of the mean of
-  ``stack_n`` stacks, ``voltage_std_v`` being the standard deviation of the single stacks;
-  with no ``stack_n`` logged, ``voltage_std_v`` is taken as the error of the stacked value).
+  swapped (A,B <-> M,N; found with the orientation of each dipole ignored, as in pyGIMLi's
+  ``uniqueERTIndex(unify=True)``, which builds the keys here). The two readings are then
+  compared **signed, in one orientation**: by reciprocity, current in at M and out at N with
+  the voltage taken as V(A) - V(B) gives the same transfer resistance, sign included, as the
+  normal reading (A -> B, V(M) - V(N)); a reciprocal logged with a dipole the other way round
+  is turned back (its R times -1 per reversed dipole) before the comparison. The signed
+  difference is ``dr_ohm = Rn - Rr`` (oriented) and the reciprocal error
+  ``|Rn - Rr| / ((|Rn| + |Rr|) / 2)`` (LaBrecque et al. 1996, Geophysics 61(2):538-548, with
+  the mean of the magnitudes below the line): a polarity reversal of one reading gives 2
+  (200 %), not 0.
+* Stacking error: ``voltage_std_v`` itself. The readings-log format defines ``voltage_std_v``
+  as the standard error of the logged (stacked) voltage, V; ``stack_n`` is for the record and
+  does not enter (the error is not divided by ``sqrt(stack_n)`` here).
 * Flags (bit mask ``qc_flags``, see :class:`Flag`): reciprocal error above a maximum, stacking
   error above a relative maximum, contact resistance above a maximum, voltage below a noise
   floor, sign against the neighbouring advances of the same quadrupole, magnitude outlier
@@ -18,10 +24,12 @@ What is computed, per reading of a :class:`tbminv.readings.reader.Readings` tabl
   they are excluded from inversion, not deleted.
 * An error model ``e = a + b |R|`` (ohm), fitted to the normal-reciprocal differences per
   advance, per shift or for the whole log (Slater et al. 2000, J. Appl. Geophys. 44:85-102),
-  with the pairs binned by ``|R|`` into equal-count bins and the standard deviation of
-  ``|Rn| - |Rr|`` in each bin fitted (Koestel et al. 2008; the same binning and bin count rule
-  as pyGIMLi's ``fitReciprocalErrorModel``). The fit is weighted by 1 / (bin standard deviation),
-  because a bin's standard deviation is uncertain in proportion to itself, and constrained to
+  with the pairs binned by ``|R|`` into equal-count bins and the root mean square of the
+  signed differences ``Rn - Rr`` in each bin fitted (Koestel et al. 2008; the same binning and
+  bin count rule as pyGIMLi's ``fitReciprocalErrorModel``). The RMS, not the standard
+  deviation, so that a systematic normal-reciprocal offset stays in the error. The fit is
+  weighted by 1 / (bin RMS), because a bin's RMS is uncertain in proportion to itself, and
+  constrained to
   ``a, b >= 0`` (non-negative least squares). Where a group has too few pairs, the fallback
   ``fallback_a_ohm`` / ``fallback_b`` is used only if the user set it; otherwise the readings
   of that group get no error and the flag ``NO_ERROR_MODEL`` (never a silent default).
@@ -74,6 +82,12 @@ class Flag(enum.IntFlag):
     """|R| off that median by more than ``outlier_max_rel``."""
     NO_ERROR_MODEL = 64
     """No error model for the reading's group (too few pairs and no fallback set)."""
+    NEGATIVE_RHOA = 128
+    """Negative apparent resistivity: the sign is opposite to the same quadrupole's response
+    in a homogeneous ground (set by :func:`tbminv.readings.advance.flag_negative_apparent`
+    when the caller knows that sign). The image inversion and the contact fit work on log
+    apparent resistivity and cannot take it: the reading is counted, kept in the table and
+    the flags file, and left out of both."""
 
 
 FLAG_NAMES: dict[str, int] = {f.name.lower(): int(f.value) for f in Flag}
@@ -223,22 +237,53 @@ class QCSettings:
 
 # ------------------------------------------------------------------- error model
 def reciprocal_error(r_normal: Any, r_reciprocal: Any) -> np.ndarray:
-    """Reciprocal error ``|2(|Rn| - |Rr|) / (|Rn| + |Rr|)|`` (LaBrecque et al. 1996).
+    """Signed reciprocal error ``|Rn - Rr| / ((|Rn| + |Rr|) / 2)`` (LaBrecque et al. 1996).
 
     Parameters
     ----------
     r_normal, r_reciprocal : array_like
-        Transfer resistances of the normal and the reciprocal reading, ohm.
+        Transfer resistances of the normal and the reciprocal reading, ohm, in one
+        orientation (the reciprocal's dipoles as the normal's swapped: by reciprocity the two
+        are equal, sign included; see :func:`reciprocal_orientation`).
 
     Returns
     -------
     numpy.ndarray
-        Dimensionless error (0.1 = 10 %).
+        Dimensionless error (0.1 = 10 %); 2 for a reading of the opposite sign and equal
+        magnitude (a polarity reversal).
     """
-    rn = np.abs(np.asarray(r_normal, dtype=float))
-    rr = np.abs(np.asarray(r_reciprocal, dtype=float))
+    rn = np.asarray(r_normal, dtype=float)
+    rr = np.asarray(r_reciprocal, dtype=float)
     with np.errstate(invalid="ignore", divide="ignore"):
-        return np.abs(2.0 * (rn - rr) / (rn + rr))
+        return np.abs(2.0 * (rn - rr) / (np.abs(rn) + np.abs(rr)))
+
+
+def reciprocal_orientation(table: pd.DataFrame, i_normal: np.ndarray,
+                           i_reciprocal: np.ndarray) -> np.ndarray:
+    """Sign that turns each reciprocal reading into the normal's orientation, +1 or -1.
+
+    The reciprocal of the normal ``A B M N`` in the same orientation is ``M N A B``; each of
+    its dipoles logged the other way round (``N M`` or ``B A``) changes the sign of R once.
+
+    Parameters
+    ----------
+    table : pandas.DataFrame
+        Readings with the label columns ``a b m n`` (empty or NaN for a pole).
+    i_normal, i_reciprocal : ndarray of int
+        Positions of the paired readings (:func:`find_reciprocal_pairs`).
+
+    Returns
+    -------
+    ndarray of float
+        Multiply the reciprocal's R by it before comparing.
+    """
+    lab = {c: table[c].astype(object).where(table[c].notna(), "").astype(str).to_numpy(object)
+           for c in LABEL_COLUMNS}
+    a, b, m, n = (lab[c][i_normal] for c in LABEL_COLUMNS)
+    ra, rb, rm, rn = (lab[c][i_reciprocal] for c in LABEL_COLUMNS)
+    cur = np.where((ra == m) & (rb == n), 1.0, -1.0)
+    pot = np.where((rm == a) & (rn == b), 1.0, -1.0)
+    return cur * pot
 
 
 def default_bin_count(n_pairs: int) -> int:
@@ -251,7 +296,8 @@ class ErrorModel:
     """``e = a_ohm + b |R|``, ohm, for one group of readings.
 
     ``source`` is ``"reciprocal fit"``, ``"fallback"`` or ``"none"`` (then ``a_ohm`` and
-    ``b`` are NaN). ``bin_r_ohm`` / ``bin_std_ohm`` are the binned data the fit used.
+    ``b`` are NaN). ``bin_r_ohm`` / ``bin_std_ohm`` are the binned data the fit used
+    (``bin_std_ohm``: the root mean square of the signed differences in each bin, ohm).
     """
 
     group: str
@@ -288,7 +334,7 @@ def fit_error_model(r_mean_ohm: Any, dr_ohm: Any, n_bins: int | None = None,
     r_mean_ohm : array_like
         Mean |R| of each pair, ohm.
     dr_ohm : array_like
-        ``|Rn| - |Rr|`` of each pair, ohm.
+        Signed difference ``Rn - Rr`` of each pair in one orientation, ohm.
     n_bins : int, optional
         Equal-count bins along |R|; default :func:`default_bin_count`.
     group : str
@@ -297,7 +343,8 @@ def fit_error_model(r_mean_ohm: Any, dr_ohm: Any, n_bins: int | None = None,
     Returns
     -------
     ErrorModel
-        ``e`` estimates the standard deviation of ``|Rn| - |Rr|`` at ``|R|``.
+        ``e`` estimates the root mean square of ``Rn - Rr`` at ``|R|`` (a systematic
+        offset between normal and reciprocal readings included).
     """
     r = np.abs(np.asarray(r_mean_ohm, dtype=float))
     d = np.asarray(dr_ohm, dtype=float)
@@ -312,7 +359,8 @@ def fit_error_model(r_mean_ohm: Any, dr_ohm: Any, n_bins: int | None = None,
     r, d = r[order], d[order]
     edges = np.linspace(0, n, nb + 1).astype(int)
     mean_r = np.array([r[edges[k]:edges[k + 1]].mean() for k in range(nb)])
-    std_d = np.array([d[edges[k]:edges[k + 1]].std(ddof=1) for k in range(nb)])
+    std_d = np.array([math.sqrt(float(np.mean(d[edges[k]:edges[k + 1]] ** 2)))
+                      for k in range(nb)])
     use = np.isfinite(std_d) & (std_d > 0)
     if use.sum() < 2:
         raise QCError(f"error model {group!r}: the reciprocal differences do not vary")
@@ -402,22 +450,28 @@ class QCResult:
     ----------
     table : pandas.DataFrame
         The readings table plus ``r_ohm``, ``reciprocal_error`` (NaN if unpaired),
+        ``reciprocal_diff_ohm`` (signed ``Rn - Rr`` of its pair in the normal's orientation),
         ``partner_line`` (line of the reciprocal partner, -1 if none), ``stack_error_v``,
         ``error_group``, ``err_ohm`` (NaN where no error model), ``err_rel``
         (``err_ohm / |r_ohm|``), ``qc_flags`` (int, :class:`Flag` bits), ``valid`` (bool).
     pairs : pandas.DataFrame
         One row per pair: ``advance, line_normal, line_reciprocal, r_normal_ohm,
-        r_reciprocal_ohm, r_mean_ohm, dr_ohm, reciprocal_error, used_in_fit``.
+        r_reciprocal_ohm`` (as logged), ``r_mean_ohm`` (mean magnitude), ``dr_ohm`` (signed
+        ``Rn - Rr`` in one orientation), ``reciprocal_error, used_in_fit``.
     error_models : dict
         Group name -> :class:`ErrorModel`.
     settings : QCSettings
         The settings used.
+    sign_checked : bool
+        True once readings were checked for a negative apparent resistivity
+        (:func:`tbminv.readings.advance.flag_negative_apparent`).
     """
 
     table: pd.DataFrame
     pairs: pd.DataFrame
     error_models: dict[str, ErrorModel]
     settings: QCSettings
+    sign_checked: bool = False
 
     def flag_counts(self) -> dict[str, int]:
         """Readings carrying each flag."""
@@ -457,6 +511,8 @@ class QCResult:
             "valid": int(t["valid"].sum()) if len(t) else 0,
             "flagged": int((t["qc_flags"] != 0).sum()) if len(t) else 0,
             "flags": self.flag_counts(),
+            "negative_apparent_resistivity": (self.flag_counts()["negative_rhoa"]
+                                              if self.sign_checked else None),
             "reciprocal_pairs": int(len(self.pairs)),
             "reciprocal_error_median": float(np.median(rec)) if len(rec) else None,
             "reciprocal_error_p90": float(np.percentile(rec, 90)) if len(rec) else None,
@@ -548,7 +604,8 @@ def run_qc(readings: Readings | pd.DataFrame, settings: QCSettings | None = None
 
     # reciprocal pairs
     i_n, i_r = find_reciprocal_pairs(table)
-    rec = reciprocal_error(r[i_n], r[i_r])
+    r_rec = r[i_r] * reciprocal_orientation(table, i_n, i_r)   # in the normal's orientation
+    rec = reciprocal_error(r[i_n], r_rec)
     table["reciprocal_error"] = np.nan
     table["partner_line"] = np.int64(-1)
     lines = table["line"].to_numpy()
@@ -560,14 +617,17 @@ def run_qc(readings: Readings | pd.DataFrame, settings: QCSettings | None = None
     partner[i_r] = lines[i_n]
     table["reciprocal_error"] = recerr
     table["partner_line"] = partner
+    diff = np.full(n, np.nan)
+    diff[i_n] = r[i_n] - r_rec
+    diff[i_r] = r[i_n] - r_rec
+    table["reciprocal_diff_ohm"] = diff
     with np.errstate(invalid="ignore"):
         flags[recerr > settings.reciprocal_max] |= Flag.RECIPROCAL
 
     # stacking
     std = table["voltage_std_v"].to_numpy(float)
-    stack = table["stack_n"].to_numpy(float)
+    serr = std   # the error of the stacked value itself (stack_n is for the record only)
     with np.errstate(invalid="ignore", divide="ignore"):
-        serr = np.where(np.isfinite(stack), std / np.sqrt(stack), std)
         flags[serr > settings.stack_max_rel * np.abs(volt)] |= Flag.STACKING
     table["stack_error_v"] = serr
 
@@ -602,7 +662,7 @@ def run_qc(readings: Readings | pd.DataFrame, settings: QCSettings | None = None
         "line_normal": lines[i_n], "line_reciprocal": lines[i_r],
         "r_normal_ohm": r[i_n], "r_reciprocal_ohm": r[i_r],
         "r_mean_ohm": 0.5 * (np.abs(r[i_n]) + np.abs(r[i_r])),
-        "dr_ohm": np.abs(r[i_n]) - np.abs(r[i_r]),
+        "dr_ohm": r[i_n] - r_rec,
         "reciprocal_error": rec, "used_in_fit": usable,
         "error_group": groups[i_n] if n else np.zeros(0, dtype=object),
     })
@@ -678,6 +738,9 @@ def summary_text(readings: Readings, qc: QCResult) -> str:
     for name, count in s["flags"].items():
         if count:
             lines.append(f"  {count:>9d}  {name}")
+    neg = s["negative_apparent_resistivity"]
+    lines.append("negative apparent resistivity (sign against a homogeneous ground; left out of "
+                 f"the image and the contact fit): {'not checked' if neg is None else neg}")
     lines.append(f"reciprocal pairs: {s['reciprocal_pairs']}")
     if s["reciprocal_error_median"] is not None:
         lines.append(f"reciprocal error: median {100 * s['reciprocal_error_median']:.2f} %, "
@@ -698,5 +761,5 @@ def summary_text(readings: Readings, qc: QCResult) -> str:
 
 
 __all__ = ["QCError", "Flag", "flag_names", "QCSettings", "reciprocal_error", "default_bin_count",
-           "ErrorModel", "fit_error_model", "quadrupole_keys", "find_reciprocal_pairs", "QCResult",
-           "run_qc", "summary_text"]
+           "reciprocal_orientation", "ErrorModel", "fit_error_model", "quadrupole_keys",
+           "find_reciprocal_pairs", "QCResult", "run_qc", "summary_text"]

@@ -87,6 +87,29 @@ def test_null_coupled_dipoles_invert_end_to_end(symmetric_dipole_drive, uninterr
     assert not journal_root(store).exists()      # removed once the shift is stored
 
 
+def test_invert_cli_writes_the_flags_file_beside_the_quarantine(symmetric_dipole_drive,
+                                                                uninterrupted):
+    import pandas as pd
+
+    from tbminv.jobs import qc_folder
+    from tbminv.readings.flagfile import FLAGS_COLUMNS, FLAGS_FILE
+
+    store, stderr = uninterrupted
+    folder = qc_folder(store, symmetric_dipole_drive.readings)
+    assert folder.parent.parent == store.parent
+    assert (folder / "quarantine.csv").exists()
+    flags = pd.read_csv(folder / FLAGS_FILE)
+    log = pd.read_csv(symmetric_dipole_drive.readings)
+    assert tuple(flags.columns) == FLAGS_COLUMNS
+    assert len(flags) == len(log)                     # one row per reading, none quarantined
+    assert flags["line"].tolist() == list(range(2, len(log) + 2))
+    settings, _ = load_settings(symmetric_dipole_drive.settings)
+    assert settings.model_error_floor > 0
+    assert (flags["model_error_floor"] == settings.model_error_floor).all()
+    # a simulated drive with 1 % noise has no polarity reversal: no negative readings
+    assert flags["negative_rhoa"].sum() == 0
+
+
 @pytest.mark.slow  # two more command-line runs: about 22 s on 2 CPUs
 def test_killed_run_resumes_to_the_same_result(symmetric_dipole_drive, uninterrupted,
                                                tmp_path):

@@ -55,6 +55,7 @@ from tbminv.forward.registry import ForwardModel
 from tbminv.ground import Scenario
 from tbminv.layout import Layout, Measurement
 from tbminv.readings.advance import AdvanceData, prepare_advances
+from tbminv.readings.errorfloor import with_error_floor
 from tbminv.readings.qc import QCSettings
 from tbminv.studies.simulate import simulate_drive
 
@@ -201,18 +202,6 @@ def synthetic_drive(layout: Layout, scenario: Scenario, faces_m: Sequence[float]
     data = _qc_data(readings, layout, qc_settings)
     return SyntheticDrive(layout, scenario, readings, data,
                           first_contact_chainage(scenario, float(min(faces_m))), name)
-
-
-def with_error_floor(data: Sequence[AdvanceData], floor_rel: float) -> list[AdvanceData]:
-    """Add a relative modelling-error floor in quadrature to every reading's error.
-
-    ``e = sqrt(e_qc^2 + floor_rel^2)``: an error model for forward models that are known to
-    differ from the data's physics by about ``floor_rel`` (0: the QC error model alone).
-    """
-    if floor_rel < 0:
-        raise ValueError(f"floor_rel = {floor_rel!r}: expected >= 0")
-    return [dataclasses.replace(d, rel_error=np.sqrt(np.asarray(d.rel_error, float) ** 2
-                                                     + floor_rel ** 2)) for d in data]
 
 
 # ------------------------------------------------------------------------ records
