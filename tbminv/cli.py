@@ -50,8 +50,10 @@ class CLIError(Exception):
 
 
 def _number(kind: str) -> Callable[[str], float]:
-    """An argparse type: a finite float that is ``positive`` (> 0), ``non-negative`` (>= 0) or a
-    ``probability`` strictly between 0 and 1."""
+    """An argparse type: a finite float of the given kind.
+
+    ``positive`` (> 0), ``non-negative`` (>= 0) or ``probability`` (strictly between 0 and 1).
+    """
 
     def parse(text: str) -> float:
         try:
