@@ -1,8 +1,9 @@
 """Candidate materials from resistivity, and Archie's law.
 
 Resistivity does not name a material: the handbook ranges of soils and rocks overlap over
-decades (a water-bearing sand and a silt can both read 60 ohm-m). :func:`candidates` therefore returns *every* class
-whose range contains the value (or overlaps an interval), never a single answer.
+decades (a water-bearing sand and a silt can both read 60 ohm-m). :func:`candidates` therefore
+returns *every* class whose range contains the value (or overlaps an interval), never a single
+answer.
 
 The built-in table (:data:`HANDBOOK_TABLE`) follows the ranges of Reynolds 2011, *An
 Introduction to Applied and Environmental Geophysics*, 2nd ed., table 7.1 (after Telford et al.
