@@ -2,8 +2,9 @@
 
 Pages: cover (shift, advances, level of concern, the caution), the moving section with the
 face positions, the section ahead of the face at the last advance, the ahead profile with its
-band, the changes detected (distance, confidence) and candidate materials, the inversion fit
-per advance, the QC summary (if given) and the provenance (input hashes, settings, versions).
+band, the changes detected (distance, contrast interval, calibrated false-alarm probability,
+every part of an ambiguous distance answer) and candidate materials, the inversion fit per
+advance, the QC summary (if given) and the provenance (input hashes, settings, versions).
 """
 
 from __future__ import annotations

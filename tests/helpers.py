@@ -6,6 +6,7 @@ checks, no physics.
 
 from __future__ import annotations
 
+import dataclasses
 import math
 import textwrap
 from pathlib import Path
@@ -37,11 +38,12 @@ SETTINGS_TEXT = "[invert]\nlambda = 20.0\n"
 def make_results(advances=range(5), *, first_face_m=1200.0, step_m=1.5, rho_around=80.0,
                  rho_beyond=None, contact_chainage_m=1230.0, artefact_ahead_m=None,
                  artefact_factor=5.0, artefact_shape="bump", noise_log10=0.0, seed=0,
-                 with_contact_fit=True, flagged=(), radius_m=3.0, doi=False):
+                 with_contact_fit=True, flagged=(), radius_m=3.0, doi=False, contact_extra=None):
     """Invented per-advance results: smooth step at a fixed chainage, coverage fading ahead.
 
     rho_beyond=None: homogeneous ground. artefact_ahead_m: a blob that travels with the
-    machine at that distance ahead (what an artefact looks like).
+    machine at that distance ahead (what an artefact looks like). contact_extra: fields
+    replaced in the contact fits that find the contact (e.g. ``{"at_bound": True}``).
     """
     rng = np.random.default_rng(seed)
     ahead = np.arange(-4.0, 30.01, 0.5)
@@ -70,12 +72,19 @@ def make_results(advances=range(5), *, first_face_m=1200.0, step_m=1.5, rho_arou
             if rho_beyond is not None and contact_chainage_m - face > 0:
                 d = contact_chainage_m - face
                 half = 0.3 + 0.05 * d
+                ratio = rho_beyond / rho_around
                 contact = ContactFit(ahead_m=d, ahead_lo_m=d - half, ahead_hi_m=d + half,
                                      resistivity_around_ohmm=rho_around,
-                                     resistivity_beyond_ohmm=rho_beyond, p_no_contact=0.01)
+                                     resistivity_beyond_ohmm=rho_beyond, p_no_contact=0.001,
+                                     p_homogeneous=0.001, contrast=ratio,
+                                     contrast_lo=ratio / 1.5, contrast_hi=ratio * 1.5,
+                                     parts_m=((d - half, d + half),), lr_statistic=40.0)
+                if contact_extra:
+                    contact = dataclasses.replace(contact, **contact_extra)
             else:
                 contact = ContactFit(math.nan, math.nan, math.nan,
-                                     resistivity_around_ohmm=rho_around, p_no_contact=0.95)
+                                     resistivity_around_ohmm=rho_around, p_no_contact=0.95,
+                                     p_homogeneous=0.95, lr_statistic=1.0)
         bad = adv in flagged
         out.append(AdvanceResult(
             advance=int(adv), face_chainage_m=face, ahead_m=ahead, radius_m=radius,

@@ -1,26 +1,62 @@
-"""Parametric contact fit: is there a planar change ahead, how far, which way, how sure.
+"""Parametric contact fit: is there a planar change ahead, where, which way, how sure.
 
-Model: ground of resistivity ``rho1`` around the machine and a plane square to the axis at
-distance ``d`` ahead of the face with ``rho2 = c * rho1`` beyond. The forward physics is the one
-of the chosen forward model (machine and tunnel in), tabulated once per layout as a response
-table ``R(c, d)`` for ``rho1 = rho_ref`` (:class:`ResponseTable`, cached on disk). Readings scale
-with ``rho1`` exactly where the fixed regions scale with it (steel: yes, to within its cap; the
-tunnel lining: no), so ``rho_ref`` is taken near the data's apparent resistivity; the
-approximation is stated in the results.
+Model: ground of resistivity ``rho1`` and a plane square to the axis at chainage ``X`` with
+``rho2 = c * rho1`` beyond it. The contrast is parametrised by the reflection coefficient
+``k = (rho2 - rho1) / (rho2 + rho1)`` in (-1, 1) (Telford, Geldart & Sheriff 1990, Applied
+Geophysics 2nd ed., sec. 8.3), so ``c = (1 + k) / (1 - k)``; the table runs from 1:1000 to
+1000:1 (``k`` = -0.998 to 0.998; a perfectly conducting or insulating ground beyond the plane is
+the limit ``k -> -1 / +1``), and the fit is continuous in ``k`` (cubic in ``k``; the image
+solution is linear in ``k``). The forward physics is the one of the chosen forward model
+(machine and tunnel in), tabulated once per layout as a response table ``R(c, d)`` for
+``rho1 = rho_ref`` (:class:`ResponseTable`, cached on disk). Readings scale with ``rho1`` exactly
+where the fixed regions scale with it (steel: yes, to within its cap; the tunnel lining: no).
 
 Fit, per advance: for every (c, d) the best ``log rho1`` is a weighted mean (closed form) and
-``chi2(c, d)`` follows; the profile ``chi2(d) = min_c chi2(c, d)`` gives the best distance and a
-profile-likelihood interval ``{d : chi2(d) <= chi2_min + delta}`` (delta = 3.84 for 95 %,
-one parameter; scaled by the reduced chi-squared of the best fit when the fit is poor). The
-evidence against "no contact within reach" is the likelihood-ratio statistic against the
-homogeneous model (c = 1), with its chi-squared p-value for two extra parameters (Wilks'
-theorem; an approximation near the edges of the grid), and the posterior weight of the
-homogeneous model with equal prior weights in the BIC approximation (Schwarz 1978, Ann. Stat.
-6(2):461-464), ``p_no_contact = 1 / (1 + exp((BIC0 - BIC1) / 2))``.
+``chi2(c, d)`` follows (:meth:`ContactFitter.likelihood`).
 
-Successive advances combine: a real contact stays at one chainage X while the face approaches,
-so ``chi2(c, X) = sum_k chi2_k(c, X - face_k)`` over a window of advances, which breaks the
-trade-off between near-and-weak and far-and-strong that one advance leaves.
+Joint fit over a window of advances (:meth:`ContactFitter.estimate`): a real contact stays at
+one chainage ``X`` while the face moves, so ``chi2(c, X) = sum_k chi2_k(c, X - face_k)``, with
+one resistivity ``rho1`` shared by the window (its fitted value is the reported resistivity
+around the machine). ``X`` runs from the first face of the window to the table's last distance
+ahead of the current face: an advance whose face has passed ``X`` sits in the second medium
+and is modelled as homogeneous ground of ``rho2`` (the face crossing is modelled, not forced
+ahead); an advance for which ``X`` is beyond the table sees homogeneous ``rho1``. A contact
+between the face and the first table distance is taken as at that distance. Limitation: an
+advance whose electrodes straddle the contact (or lie just past it) is not homogeneous, so
+once the face is more than about a shield length past the contact, the fitted chainage can
+creep forward (measured with the image method in tests/inversion/test_contactfit.py: up to
+5 m after 20 m); a tabulated response of contacts behind the face would remove this.
+
+Answers (fields of :class:`ContactEstimate`; names are stable, fields are only added):
+
+- ``ahead_m`` / ``chainage_m``: best point; negative ``ahead_m``: the face has passed it.
+- ``ahead_lo_m`` / ``ahead_hi_m``: span of the profile-likelihood set
+  ``{X : min_c chi2 <= chi2_min + delta}`` (``delta`` = chi-squared quantile of
+  ``confidence`` for one parameter, times the reduced chi-squared of the best fit when above 1).
+  The set may have several parts (``parts_m``, a list of ``[lo, hi]`` distances ahead);
+  ``ambiguous`` is true when it has more than one. ``ahead_hi_m`` is NaN when the set reaches
+  the table's last distance (open beyond reach).
+- ``contrast`` (``rho2 / rho1``) with its profile interval ``contrast_lo`` / ``contrast_hi``.
+- ``at_bound``: the best point is at a parameter bound (contrast at a table end, distance at
+  the first or last grid point) or the distance set touches the first or last grid point; the
+  results module caps such a result at the lowest level of concern.
+- ``contrast_open``: the contrast interval reaches a table end (one-sided: "x5 or more"). The
+  response saturates in ``k`` (10:1 is ``k`` = 0.82, 1000:1 is 0.998), so a strong contact two
+  diameters ahead leaves this end open while its direction and lower limit are clear; such a
+  result is reported one-sided and never as 'firm' (see :mod:`tbminv.results.ahead`).
+- ``lr_statistic``: ``(chi2_homogeneous - chi2_min) / max(1, chi2_min / dof)``, the likelihood
+  ratio against "no contact" in quasi-likelihood scaling. Its null distribution is not
+  chi-squared (the distance is undefined without a contact: Davies 1987, Biometrika
+  74(1):33-43), so ``p_false_alarm`` is its tail probability under "no contact" as measured by
+  simulation on homogeneous drives (:mod:`tbminv.inversion.nullcal`). ``p_no_contact`` and
+  ``p_homogeneous`` carry the same calibrated value (a p-value, not the probability that
+  there is no contact).
+- ``found``: ``p_false_alarm <= p_threshold`` and a contrast other than 1.
+
+Use::
+
+    fitter = ContactFitter(table, ContactFitSettings())
+    estimates = fitter.fit_drive(r_obs, rel_error, faces_m, use, skip_unusable=True)
 """
 
 from __future__ import annotations
@@ -40,6 +76,7 @@ from scipy.stats import chi2 as chi2_dist
 
 from tbminv.cache import atomic_path, cache_dir, cache_key
 from tbminv.ground import Contact, Scenario
+from tbminv.inversion.nullcal import NullCalibration, load_calibration
 from tbminv.layout import Layout
 
 _LOG = logging.getLogger(__name__)
@@ -52,19 +89,21 @@ class ContactFitSettings:
     Attributes
     ----------
     contrasts : tuple of float
-        Tabulated contrasts rho2/rho1 (1 is added if missing).
+        Tabulated contrasts rho2/rho1 (1 is added if missing); their ends are the bounds of
+        the fit (a result there is flagged ``at_bound``).
     distances_in_diameters : tuple of float
         Tabulated distances ahead in machine diameters.
     confidence : float
         Confidence of the distance interval (profile likelihood).
     p_threshold : float
-        A contact is reported when the homogeneous model's p-value is below this.
+        A contact is reported when the calibrated false-alarm probability of the
+        likelihood-ratio statistic (:mod:`tbminv.inversion.nullcal`) is at or below this.
     window : int
         Advances combined in the running joint fit (including the current one).
     fine_distances : int
         Points of the interpolated distance grid.
     fine_contrasts : int
-        Points of the interpolated contrast grid.
+        Points of the interpolated contrast grid (uniform in the reflection coefficient k).
     shared_resistivity : bool
         One resistivity around the machine for all advances of the window (the machine moves
         through the same ground until it reaches the contact). With the steel in, every pole
@@ -81,14 +120,15 @@ class ContactFitSettings:
         leaving them out at 1e-3 moved its fitted distances by up to 3 m).
     """
 
-    contrasts: tuple[float, ...] = (0.05, 0.1, 0.25, 0.5, 1.0, 2.0, 4.0, 10.0, 20.0)
+    contrasts: tuple[float, ...] = (0.001, 0.01, 0.05, 0.1, 0.25, 0.5, 1.0, 2.0, 4.0, 10.0, 20.0,
+                                   100.0, 1000.0)
     distances_in_diameters: tuple[float, ...] = tuple(
         float(x) for x in np.round(np.geomspace(0.1, 12.0, 15), 4))
     confidence: float = 0.95
     p_threshold: float = 0.01
     window: int = 30
     fine_distances: int = 240
-    fine_contrasts: int = 81
+    fine_contrasts: int = 121
     shared_resistivity: bool = True
     null_fraction: float = 1e-6
 
@@ -211,6 +251,18 @@ def build_response_table(layout: Layout, model: Any, *, rho_ref_ohmm: float,
     return table
 
 
+def contrast_to_k(contrast: np.ndarray | float) -> np.ndarray:
+    """Reflection coefficient ``k = (c - 1) / (c + 1)`` of a contrast ``c = rho2 / rho1``."""
+    c = np.asarray(contrast, float)
+    return (c - 1.0) / (c + 1.0)
+
+
+def k_to_contrast(k: np.ndarray | float) -> np.ndarray:
+    """Contrast ``c = (1 + k) / (1 - k)`` of a reflection coefficient ``k`` in (-1, 1)."""
+    k = np.asarray(k, float)
+    return (1.0 + k) / (1.0 - k)
+
+
 @dataclass
 class Likelihood:
     """chi2 over the fine (contrast, distance) grid of one advance."""
@@ -227,7 +279,14 @@ class Likelihood:
 
 @dataclass
 class ContactEstimate:
-    """Result of a contact fit (distances ahead of the current face, m)."""
+    """Result of a contact fit (distances ahead of the current face, m; see the module text).
+
+    Fields up to ``note`` are the original ones; later fields were added with defaults.
+    ``contrast`` is ``rho2 / rho1`` (resistivity beyond over the shared resistivity around);
+    ``parts_m`` lists the parts ``[lo, hi]`` of the distance set (``hi`` NaN: open beyond the
+    table); ``p_false_alarm`` is the calibrated tail probability of ``lr_statistic`` under "no
+    contact" (``p_no_contact`` and ``p_homogeneous`` hold the same value).
+    """
 
     found: bool
     ahead_m: float
@@ -244,10 +303,26 @@ class ContactEstimate:
     n_data: int
     n_advances: int
     note: str = ""
+    contrast_lo: float = math.nan
+    contrast_hi: float = math.nan
+    at_bound: bool = False
+    ambiguous: bool = False
+    parts_m: list[list[float]] = dataclasses.field(default_factory=list)
+    lr_statistic: float = math.nan
+    p_false_alarm: float = math.nan
+    reflection_k: float = math.nan
+    contrast_open: bool = False
 
     def as_dict(self) -> dict[str, Any]:
         """Plain dictionary."""
         return dataclasses.asdict(self)
+
+
+def _runs(mask: np.ndarray) -> list[tuple[int, int]]:
+    """Index ranges ``(first, last)`` of the runs of True in a 1-D mask."""
+    m = np.concatenate([[False], np.asarray(mask, bool), [False]])
+    edges = np.flatnonzero(np.diff(m.astype(np.int8)))
+    return [(int(a), int(b) - 1) for a, b in zip(edges[::2], edges[1::2])]
 
 
 class ContactFitter:
@@ -259,6 +334,8 @@ class ContactFitter:
     settings : ContactFitSettings
     labels : sequence of str, optional
         A name per reading of the table (for the log of left-out readings).
+    calibration : NullCalibration, optional
+        Null distribution of the likelihood-ratio statistic (default: the package's table).
 
     Attributes
     ----------
@@ -267,6 +344,8 @@ class ContactFitter:
         not finite, see :meth:`ResponseTable.usable`) are never used by the fit.
     left_out : dict
         Reading index -> why it was left out.
+    fine_k, fine_c : ndarray
+        The fit's grid in the reflection coefficient and the matching contrasts.
 
     Raises
     ------
@@ -275,9 +354,11 @@ class ContactFitter:
     """
 
     def __init__(self, table: ResponseTable, settings: ContactFitSettings = ContactFitSettings(),
-                 labels: Sequence[str] | None = None):
+                 labels: Sequence[str] | None = None,
+                 calibration: NullCalibration | None = None):
         self.table = table
         self.settings = settings
+        self.calibration = calibration or load_calibration()
         c, d = table.contrasts, table.distances_m
         self.usable, self.left_out = table.usable(settings.null_fraction)
         use = self.usable
@@ -291,18 +372,25 @@ class ContactFitter:
                          use.size, "; ".join(f"{names[i]}: {why}"
                                              for i, why in self.left_out.items()))
         rel = table.r_ohm[..., use] / table.r0_ohm[None, None, use]
-        # interpolate the relative response (smooth) in (log c, log d)
-        self._interp = RegularGridInterpolator((np.log(c), np.log(d)), rel, method="cubic"
+        # interpolate the relative response in (k, log d): the image response is linear in k
+        k_tab = contrast_to_k(c)
+        self._interp = RegularGridInterpolator((k_tab, np.log(d)), rel, method="cubic"
                                                if min(c.size, d.size) >= 4 else "linear")
-        self.fine_c = np.exp(np.linspace(np.log(c[0]), np.log(c[-1]), settings.fine_contrasts))
-        if not np.any(np.isclose(self.fine_c, 1.0)):
-            self.fine_c = np.sort(np.append(self.fine_c, 1.0))
+        fk = np.linspace(k_tab[0], k_tab[-1], settings.fine_contrasts)
+        if not np.any(np.isclose(fk, 0.0, atol=1e-12)):
+            fk = np.sort(np.append(fk, 0.0))
+        fk[np.argmin(np.abs(fk))] = 0.0
+        self.fine_k = fk
+        self.fine_c = k_to_contrast(fk)
         self.fine_d = np.exp(np.linspace(np.log(d[0]), np.log(d[-1]), settings.fine_distances))
-        lc, ld = np.meshgrid(np.log(self.fine_c), np.log(self.fine_d), indexing="ij")
-        pts = np.stack([lc.ravel(), ld.ravel()], axis=-1)
-        self.fine_rel = np.full(lc.shape + (use.size,), np.nan)
-        self.fine_rel[..., use] = self._interp(pts).reshape(lc.shape + (int(use.sum()),))
-        self.fine_rel[np.isclose(self.fine_c, 1.0)] = 1.0
+        kk, ld = np.meshgrid(fk, np.log(self.fine_d), indexing="ij")
+        pts = np.stack([kk.ravel(), ld.ravel()], axis=-1)
+        self.fine_rel = np.full(kk.shape + (use.size,), np.nan)
+        self.fine_rel[..., use] = self._interp(pts).reshape(kk.shape + (int(use.sum()),))
+        self.fine_rel[self.fine_k == 0.0] = 1.0
+        with np.errstate(divide="ignore", invalid="ignore"):
+            g = np.log(np.abs(self.fine_rel))
+        self._log_rel = np.where(np.isfinite(g), g, 0.0)       # (nc, nd, nq)
 
     def usable_readings(self, r_obs_ohm: np.ndarray, rel_error: np.ndarray,
                         use: np.ndarray | None = None) -> np.ndarray:
@@ -344,113 +432,154 @@ class ContactFitter:
         # data: log of apparent resistivity against the table's homogeneous response
         y = np.log(np.abs(r_obs_ohm[ok]) / np.abs(r0[ok]) * self.table.rho_ref_ohmm)
         w = 1.0 / rel_error[ok] ** 2
-        with np.errstate(divide="ignore", invalid="ignore"):
-            g = np.log(np.abs(self.fine_rel[..., ok]))     # (nc, nd, n)
-        g = np.where(np.isfinite(g), g, 0.0)
-        resid = y[None, None, :] - g
-        lr = (resid * w).sum(-1) / w.sum()
-        chi2 = (w * (resid - lr[..., None]) ** 2).sum(-1)
-        lr0 = float((y * w).sum() / w.sum())
-        chi2_0 = float((w * (y - lr0) ** 2).sum())
-        return Likelihood(self.fine_c, self.fine_d, chi2, lr, chi2_0, lr0, int(ok.sum()),
-                          float(w.sum()))
+        big_w = float(w.sum())
+        lr0 = float((y * w).sum() / big_w)
+        yc = y - lr0                                    # centred: no cancellation below
+        chi2_0 = float((w * yc ** 2).sum())
+        g = self._log_rel[..., ok]                      # (nc, nd, n)
+        s_g = g @ w
+        s_gg = (g * g) @ w
+        s_yg = g @ (w * yc)
+        mean = -s_g / big_w                             # best log rho1 - lr0 per cell
+        chi2 = np.maximum(chi2_0 - 2.0 * s_yg + s_gg - big_w * mean ** 2, 0.0)
+        return Likelihood(self.fine_c, self.fine_d, chi2, mean + lr0, chi2_0, lr0,
+                          int(ok.sum()), big_w)
 
-    def estimate(self, likelihoods: Sequence[Likelihood], faces_m: Sequence[float]
-                 ) -> ContactEstimate:
-        """Joint estimate over advances (the last one is the current face)."""
-        s = self.settings
+    def chainage_grid(self, faces_m: Sequence[float]) -> np.ndarray:
+        """Candidate contact chainages of a window, m.
+
+        From the window's first face (behind the current face) to the table's last distance
+        ahead of the current face.
+        """
         faces = np.asarray(faces_m, float)
-        cur = faces[-1]
+        cur, first = float(faces[-1]), float(faces.min())
+        ahead = cur + self.fine_d
+        step = 0.5 * float(self.fine_d[0])
+        if cur - first <= step:
+            return ahead
+        behind = np.arange(first, cur - 0.5 * step, step)
+        return np.concatenate([behind, ahead])
+
+    def joint_chi2(self, likelihoods: Sequence[Likelihood], faces_m: Sequence[float]
+                   ) -> tuple[np.ndarray, np.ndarray, float, float, np.ndarray]:
+        """chi2 of the window over (contrast, chainage) and of the homogeneous model.
+
+        Returns
+        -------
+        (x_grid, total, total0, log_rho0, log_rho)
+            Chainages (nx,), m; chi2 (nc, nx); homogeneous chi2; its log resistivity; the
+            fitted log ``rho1`` per cell (nc, nx): shared by the window or, without
+            ``shared_resistivity``, the current advance's.
+        """
+        faces = np.asarray(faces_m, float)
         d = self.fine_d
         dmin, dmax = d[0], d[-1]
-        # chainage grid: distances from the current face
-        x_grid = cur + d
+        x_grid = self.chainage_grid(faces)
         nc = self.fine_c.size
+        log_c = np.log(self.fine_c)[:, None]
         total = np.zeros((nc, x_grid.size))
         total0 = 0.0
-        n_data = 0
-        shared = self.settings.shared_resistivity
-        acc_w = np.zeros((nc, x_grid.size))
-        acc_wl = np.zeros((nc, x_grid.size))
-        acc_wll = np.zeros((nc, x_grid.size))
+        acc_w = np.zeros_like(total)
+        acc_wl = np.zeros_like(total)
+        acc_wll = np.zeros_like(total)
         w0 = wl0 = wll0 = 0.0
+        lrho = total
         for lik, f in zip(likelihoods, faces):
             dist = x_grid - f                         # distance ahead of that advance's face
-            n_data += lik.n_data
             total0 += lik.chi2_homogeneous
-            inside = (dist >= dmin) & (dist <= dmax)
-            ld = np.log(np.clip(dist, dmin, dmax))
-            idx = np.interp(ld, np.log(d), np.arange(d.size))
+            # contact right at the face (0 <= dist < dmin): as at the first table distance
+            idx = np.interp(np.log(np.clip(dist, dmin, dmax)), np.log(d), np.arange(d.size))
             lo = np.floor(idx).astype(int)
             hi = np.minimum(lo + 1, d.size - 1)
             t = idx - lo
             vals = lik.chi2[:, lo] * (1 - t) + lik.chi2[:, hi] * t
             lrho = lik.log_rho1[:, lo] * (1 - t) + lik.log_rho1[:, hi] * t
-            # beyond the table the contact is not seen: homogeneous misfit
-            far = ~inside & (dist > dmax)
+            far = dist > dmax                         # beyond the table: not seen
             vals[:, far] = lik.chi2_homogeneous
             lrho[:, far] = lik.log_rho1_homogeneous
-            vals[:, ~inside & (dist < dmin)] = np.nan
+            behind = dist < 0                         # face past the contact: all in rho2
+            vals[:, behind] = lik.chi2_homogeneous
+            lrho[:, behind] = lik.log_rho1_homogeneous - log_c
             total += vals
-            if shared:
-                acc_w += lik.weight
-                acc_wl += lik.weight * lrho
-                acc_wll += lik.weight * lrho ** 2
-                w0 += lik.weight
-                wl0 += lik.weight * lik.log_rho1_homogeneous
-                wll0 += lik.weight * lik.log_rho1_homogeneous ** 2
-        if shared:
+            acc_w += lik.weight
+            acc_wl += lik.weight * lrho
+            acc_wll += lik.weight * lrho ** 2
+            w0 += lik.weight
+            wl0 += lik.weight * lik.log_rho1_homogeneous
+            wll0 += lik.weight * lik.log_rho1_homogeneous ** 2
+        log_rho0 = likelihoods[-1].log_rho1_homogeneous
+        if self.settings.shared_resistivity:
             # one resistivity around the machine for the whole window: add the spread of the
             # per-advance best values, sum_k W_k (L_k - L*)^2 with L* their weighted mean
             with np.errstate(invalid="ignore", divide="ignore"):
                 total += np.maximum(acc_wll - acc_wl ** 2 / acc_w, 0.0)
+                lrho = acc_wl / acc_w
             total0 += max(wll0 - wl0 ** 2 / w0, 0.0) if w0 > 0 else 0.0
+            log_rho0 = wl0 / w0 if w0 > 0 else log_rho0
         total = np.where(np.isfinite(total), total, np.inf)
-        c1 = int(np.argmin(np.abs(self.fine_c - 1.0)))
+        c1 = int(np.flatnonzero(self.fine_k == 0.0)[0])
         total[c1, :] = total0
-        prof = total.min(axis=0)
-        best = int(np.argmin(prof))
-        chi2_min = float(prof[best])
-        ci = int(np.argmin(total[:, best]))
-        n_par = 2 + (1 if shared else len(likelihoods))
+        lrho = np.array(lrho, float)
+        lrho[c1, :] = log_rho0
+        return x_grid, total, float(total0), float(log_rho0), lrho
+
+    def estimate(self, likelihoods: Sequence[Likelihood], faces_m: Sequence[float]
+                 ) -> ContactEstimate:
+        """Joint estimate over advances (the last one is the current face); see the module."""
+        s = self.settings
+        faces = np.asarray(faces_m, float)
+        cur = float(faces[-1])
+        x_grid, total, total0, log_rho0, lrho = self.joint_chi2(likelihoods, faces)
+        n_data = int(sum(lik.n_data for lik in likelihoods))
+        ci, bj = np.unravel_index(int(np.argmin(total)), total.shape)
+        chi2_min = float(total[ci, bj])
+        n_par = 3 + (0 if s.shared_resistivity else len(likelihoods) - 1)
         dof = max(1, n_data - n_par)
         scale = max(1.0, chi2_min / dof)
         delta = float(chi2_dist.ppf(s.confidence, 1)) * scale
-        inside = prof <= chi2_min + delta
-        # contiguous interval around the best point
-        lo_i = best
-        while lo_i > 0 and inside[lo_i - 1]:
-            lo_i -= 1
-        hi_i = best
-        while hi_i < prof.size - 1 and inside[hi_i + 1]:
-            hi_i += 1
+        level = chi2_min + delta
+        # distance: every part of the profile-likelihood set
+        prof_x = total.min(axis=0)
+        parts = _runs(prof_x <= level)
+        last = x_grid.size - 1
+        parts_m = [[float(x_grid[a] - cur), math.nan if b == last else float(x_grid[b] - cur)]
+                   for a, b in parts]
+        # contrast: profile over the chainage
+        prof_c = total.min(axis=1)
+        in_c = np.flatnonzero(prof_c <= level)
+        c_lo, c_hi = float(self.fine_c[in_c[0]]), float(self.fine_c[in_c[-1]])
+        nc_last = self.fine_c.size - 1
+        at_bound = bool(parts[0][0] == 0 or parts[-1][1] == last or ci in (0, nc_last)
+                        or bj in (0, last))
+        contrast_open = bool(in_c[0] == 0 or in_c[-1] == nc_last)
+        ambiguous = len(parts) > 1
         stat = max(0.0, (total0 - chi2_min) / scale)
-        p_hom = float(chi2_dist.sf(stat, 2))
-        # posterior weight of the homogeneous model, equal priors, BIC approximation
-        d_bic = stat - 2.0 * math.log(max(n_data, 2))      # BIC0 - BIC1
-        p_none = float(1.0 / (1.0 + math.exp(min(700.0, 0.5 * d_bic))))
-        ahead = float(x_grid[best] - cur)
-        lo_m = float(x_grid[lo_i] - cur)
-        hi_m = float(x_grid[hi_i] - cur) if hi_i < prof.size - 1 else math.nan
+        p_fa = self.calibration.p_false_alarm(stat, len(likelihoods))
         contrast = float(self.fine_c[ci])
-        found = (p_hom < s.p_threshold and p_none < 0.5 and abs(math.log(contrast)) > 1e-9
-                 and math.isfinite(hi_m) and ahead < 0.8 * dmax)
-        lik = likelihoods[-1]
-        # rho1 of the current advance at the joint best contact
-        dist_cur = float(np.clip(x_grid[best] - cur, dmin, dmax))
-        j = int(np.argmin(np.abs(d - dist_cur)))
-        rho1 = float(np.exp(lik.log_rho1[ci, j])) if found else float(
-            np.exp(lik.log_rho1_homogeneous))
-        note = ""
+        found = bool(p_fa <= s.p_threshold and self.fine_k[ci] != 0.0)
+        notes = []
         if scale > 1.0:
-            note = f"interval widened by the reduced chi-squared {scale:.2f} of the best fit"
+            notes.append(f"interval widened by the reduced chi-squared {scale:.2f} of the best fit")
+        if at_bound:
+            notes.append("result at a bound of the fit (best contrast at a table end, or the "
+                         "distance or its interval at the first or last grid point)")
+        if contrast_open:
+            notes.append("contrast interval open: it reaches a table end of the contrast")
+        if ambiguous:
+            notes.append(f"{len(parts)} separate distance ranges fit the data")
+        common = dict(note="; ".join(notes), contrast_lo=c_lo, contrast_hi=c_hi,
+                      at_bound=at_bound, ambiguous=ambiguous, lr_statistic=stat,
+                      p_false_alarm=p_fa, contrast_open=contrast_open)
         if not found:
-            return ContactEstimate(False, math.nan, math.nan, math.nan, math.nan, 1.0, rho1,
-                                   rho1, chi2_min, total0, p_hom, p_none, n_data,
-                                   len(likelihoods), note)
-        return ContactEstimate(True, ahead, lo_m, hi_m, float(x_grid[best]), contrast, rho1,
-                               rho1 * contrast, chi2_min, total0, p_hom, p_none,
-                               n_data, len(likelihoods), note)
+            rho0 = float(math.exp(log_rho0))
+            return ContactEstimate(False, math.nan, math.nan, math.nan, math.nan, 1.0, rho0,
+                                   rho0, chi2_min, total0, p_fa, p_fa, n_data,
+                                   len(likelihoods), parts_m=[], reflection_k=0.0, **common)
+        rho1 = float(math.exp(lrho[ci, bj]))
+        return ContactEstimate(True, float(x_grid[bj] - cur), parts_m[0][0], parts_m[-1][1],
+                               float(x_grid[bj]), contrast, rho1, rho1 * contrast, chi2_min,
+                               total0, p_fa, p_fa, n_data, len(likelihoods), parts_m=parts_m,
+                               reflection_k=float(self.fine_k[ci]), **common)
 
     def fit_drive(self, r_obs: np.ndarray, rel_error: np.ndarray, faces_m: Sequence[float],
                   use: np.ndarray | None = None, *, skip_unusable: bool = False
@@ -491,4 +620,4 @@ class ContactFitter:
 
 
 __all__ = ["ContactFitSettings", "ResponseTable", "build_response_table", "ContactFitter",
-           "ContactEstimate", "Likelihood"]
+           "ContactEstimate", "Likelihood", "contrast_to_k", "k_to_contrast"]

@@ -33,27 +33,45 @@ class ContactFit:
     ----------
     ahead_m : float
         Best-fitting distance of the contact ahead of the face, m (NaN: no contact within
-        reach).
+        reach; negative: the face has passed it).
     ahead_lo_m, ahead_hi_m : float
         Interval of ``ahead_m`` (e.g. the 90 % profile-likelihood or posterior interval), m.
     chainage_m : float or None
         Chainage of the contact on the axis, m; ``None``: face chainage + ``ahead_m``.
     resistivity_around_ohmm : float
-        Resistivity of the ground around the machine (the face side of the contact), ohm-m.
+        Resistivity of the ground around the machine (the near side of the contact), ohm-m:
+        the value the joint fit shares over its window of advances.
     resistivity_beyond_ohmm : float
         Resistivity beyond the contact, ohm-m (NaN with no contact).
     p_no_contact : float
-        Evidence for "no contact within reach" as a probability in [0, 1]: the posterior
-        weight of the homogeneous model against the contact model, with equal prior weights
-        (e.g. from the two models' Bayesian information criteria,
-        ``w0 = 1 / (1 + exp(-(BIC0 - BIC1) / 2))``). NaN: not computed.
+        Calibrated false-alarm probability of the fit's likelihood-ratio statistic against
+        "no contact within reach": the share of simulated homogeneous drives whose statistic
+        reaches this one's (:mod:`tbminv.inversion.nullcal`). A p-value, not the probability
+        that there is no contact. NaN: not computed.
     interval_level : float
         Probability content of ``[ahead_lo_m, ahead_hi_m]`` (default 0.95).
     dip_deg : float
         Fitted dip of the contact, degrees (NaN: not fitted; 90 = square to the axis).
     p_homogeneous : float
-        A second evidence measure: p-value of the homogeneous model in a likelihood-ratio test
-        against the contact model (small: the data need a contact). NaN: not computed.
+        The same calibrated value as ``p_no_contact`` (kept for older readers).
+    contrast : float
+        Resistivity beyond over resistivity around, ``rho2 / rho1`` (dimensionless; NaN: not
+        fitted).
+    contrast_lo, contrast_hi : float
+        Profile-likelihood interval of ``contrast`` (same level as the distance interval).
+    at_bound : bool
+        The best point is at a bound of the fit (a table end of the contrast, the first or
+        last distance) or the distance interval touches the first or last distance: never
+        reported above the lowest level.
+    ambiguous : bool
+        The distance set has several separate parts; ``ahead_lo_m``/``ahead_hi_m`` span all.
+    parts_m : tuple of (float, float)
+        The parts ``(lo, hi)`` of the distance set, m ahead of the face (``hi`` NaN: open).
+    contrast_open : bool
+        The contrast interval reaches a table end (a one-sided answer, e.g. "x5 or more").
+    lr_statistic : float
+        The likelihood-ratio statistic whose tail probability is ``p_no_contact``
+        (dimensionless; NaN: not computed, e.g. results written before it existed).
     """
 
     ahead_m: float
@@ -66,13 +84,21 @@ class ContactFit:
     interval_level: float = 0.95
     dip_deg: float = math.nan
     p_homogeneous: float = math.nan
+    contrast: float = math.nan
+    contrast_lo: float = math.nan
+    contrast_hi: float = math.nan
+    at_bound: bool = False
+    ambiguous: bool = False
+    parts_m: tuple[tuple[float, float], ...] = ()
+    lr_statistic: float = math.nan
+    contrast_open: bool = False
 
     @classmethod
     def from_estimate(cls, est: Any, interval_level: float = 0.95) -> ContactFit:
         """From an object with the fields of :class:`tbminv.inversion.contactfit.ContactEstimate`.
 
-        ``found == False`` gives NaN distances (no contact within reach) and keeps the
-        evidence measures.
+        ``found == False`` gives NaN distances (no contact within reach), no bound or
+        ambiguity flag, and keeps the evidence measures and the contrast interval.
         """
         found = bool(getattr(est, "found", np.isfinite(getattr(est, "ahead_m", math.nan))))
         nan = math.nan
@@ -88,7 +114,15 @@ class ContactFit:
             resistivity_around_ohmm=get("resistivity_around_ohmm"),
             resistivity_beyond_ohmm=get("resistivity_beyond_ohmm") if found else nan,
             p_no_contact=get("p_no_contact"), interval_level=interval_level,
-            p_homogeneous=get("p_homogeneous"))
+            p_homogeneous=get("p_homogeneous"),
+            contrast=get("contrast") if found else nan,
+            contrast_lo=get("contrast_lo"), contrast_hi=get("contrast_hi"),
+            at_bound=bool(getattr(est, "at_bound", False)) if found else False,
+            ambiguous=bool(getattr(est, "ambiguous", False)) if found else False,
+            parts_m=tuple((float(a), float(b)) for a, b in getattr(est, "parts_m", ()) or ())
+            if found else (),
+            lr_statistic=get("lr_statistic"),
+            contrast_open=bool(getattr(est, "contrast_open", False)) if found else False)
 
     @property
     def found(self) -> bool:

@@ -16,21 +16,29 @@ pick weighted by its own stated uncertainty (1 / sigma^2, sigma from its interva
 far pick with a wide interval does not tip the slope of a contact that later, sharper picks
 hold at one chainage (a contact fit trades distance against contrast while the contact is far).
 
-Levels of concern (our own words, thresholds in :class:`AheadSettings`):
+Levels of concern (our own words, thresholds in :class:`AheadSettings`) come from the
+calibrated statistic of the latest clean advance's contact fit, which already combines the
+evidence of its window of advances (picks of overlapping windows are not independent and are
+not counted as evidence):
 
 ``"none seen"``
-    no change within the covered reach;
+    no change within the covered reach (not "all clear": the tool is an interpretation aid);
 ``"watch"``
-    a change seen in fewer than ``likely_advances`` consistent advances;
+    a change seen, but not (or not yet) supported by a calibrated statistic: a section-profile
+    step, an older pick, a drifting group, or a contact fit at a bound of its parameters;
 ``"likely"``
-    a change at one chainage in at least ``likely_advances`` advances;
+    the group holds the latest contact fit, whose calibrated false-alarm probability
+    (``contact_p_none``, measured on simulated homogeneous drives) is at most
+    ``likely_p_false_alarm``, not at a bound, stationary (slope at most ``max_slope`` or
+    within two standard errors of 0), seen in at least ``likely_advances`` advances;
 ``"firm"``
-    at one chainage in at least ``firm_advances`` advances and a contrast of at least
-    ``firm_contrast``.
+    as "likely" with a false-alarm probability at most ``firm_p_false_alarm``, a single
+    distance range (not ambiguous), a closed contrast interval (not reaching a table end) that
+    excludes 1, a contrast of at least ``firm_contrast`` and at least ``firm_advances``
+    advances.
 
-``confidence`` (0-1) is a heuristic score, not a probability: the share of the recent clean
-advances that agree on the chainage, times one minus the median contact-fit evidence for "no
-contact" where fits exist, times the contrast relative to ``firm_contrast`` (capped at 1).
+``Change.p_false_alarm`` is that calibrated probability (NaN where the group has no calibrated
+fit); it is a p-value of "no contact", not the probability that the change is real.
 """
 
 from __future__ import annotations
@@ -81,11 +89,18 @@ class AheadSettings:
     window_advances : int
         Recent clean advances considered (default 10).
     likely_advances, firm_advances : int
-        Consistent advances for the levels "likely" (3) and "firm" (5).
+        Least number of clean advances with a pick in the group for "likely" (2) and "firm"
+        (3), on top of the calibrated statistic.
     firm_contrast : float
         Resistivity ratio needed for "firm" (default 3).
     max_p_no_contact : float
-        Contact fits whose evidence for "no contact" is above this give no pick (default 0.2).
+        Contact fits whose calibrated false-alarm probability is above this give no pick
+        (default 0.2).
+    likely_p_false_alarm, firm_p_false_alarm : float
+        Largest calibrated false-alarm probability of the latest contact fit for "likely"
+        (0.01) and "firm" (0.002): below the goals of at most 2 % false 'likely' and 0.5 %
+        false 'firm' per report on homogeneous drives, with a margin for the calibration's
+        own sampling error.
     """
 
     profile_radius_m: float | None = None
@@ -96,10 +111,12 @@ class AheadSettings:
     max_slope: float = 0.35
     artefact_slope: float = 0.65
     window_advances: int = 10
-    likely_advances: int = 3
-    firm_advances: int = 5
+    likely_advances: int = 2
+    firm_advances: int = 3
     firm_contrast: float = 3.0
     max_p_no_contact: float = 0.2
+    likely_p_false_alarm: float = 0.01
+    firm_p_false_alarm: float = 0.002
 
     @classmethod
     def from_dict(cls, d: dict[str, Any], source: str = "<dict>") -> AheadSettings:
@@ -145,18 +162,27 @@ class Pick:
     resistivity_beyond_ohmm: float
     source: str
     p_no_contact: float = math.nan
+    calibrated: bool = False
+    at_bound: bool = False
+    ambiguous: bool = False
+    contrast_lo: float = math.nan
+    contrast_hi: float = math.nan
+    parts_m: tuple[tuple[float, float], ...] = ()
+    contrast_open: bool = False
 
     @property
     def sigma_m(self) -> float:
         """Standard uncertainty of the pick chainage from its interval, m.
 
         The interval is read as a 95 % one (half-width / 1.96); an interval open on one side
-        gives the distance ahead of the face as the uncertainty.
+        (``chainage_hi_m`` infinite: beyond the fit's reach) gives the distance ahead of the
+        face as the uncertainty.
         """
         lo, hi = self.chainage_lo_m, self.chainage_hi_m
         if math.isfinite(lo) and math.isfinite(hi) and hi > lo:
             return (hi - lo) / (2.0 * 1.959964)
         return max(abs(self.ahead_m), 1e-3)
+
 
     @property
     def ahead_m(self) -> float:
@@ -164,11 +190,26 @@ class Pick:
         return self.chainage_m - self.face_chainage_m
 
 
+def _factor_text(direction: str, lo: float, hi: float, at_bound: bool) -> str:
+    """Contrast interval as the factor of the change, e.g. ``x3.1-x15`` or ``x20 or more``."""
+    if not (math.isfinite(lo) and math.isfinite(hi)):
+        return ""
+    f_lo, f_hi = (lo, hi) if direction == "more resistive" else (1.0 / hi, 1.0 / lo)
+    if lo <= 1.0 <= hi:
+        return "contrast interval includes 1 (no change)"
+    if at_bound:
+        return f"x{min(f_lo, f_hi):.2g} or more (the fit's bound)"
+    return f"x{f_lo:.2g}-x{f_hi:.2g}"
+
+
 @dataclass(frozen=True)
 class Change:
     """A change ahead, combined over advances.
 
-    Distances refer to the face of the last advance of the section.
+    Distances refer to the face of the last advance of the section. ``p_false_alarm`` is the
+    calibrated false-alarm probability of the latest contact fit of the group (NaN: none);
+    ``contrast_lo``/``contrast_hi`` its contrast interval (beyond / around); ``parts`` the
+    chainage ranges ``(lo, hi)`` of an ambiguous distance answer.
     """
 
     level: str
@@ -180,19 +221,48 @@ class Change:
     contrast_factor: float
     resistivity_around_ohmm: float
     resistivity_beyond_ohmm: float
-    confidence: float
+    p_false_alarm: float
     n_advances: int
     slope: float
     source: str
     advances: tuple[int, ...]
     reasons: tuple[str, ...] = ()
+    at_bound: bool = False
+    ambiguous: bool = False
+    contrast_lo: float = math.nan
+    contrast_hi: float = math.nan
+    parts: tuple[tuple[float, float], ...] = ()
+    contrast_open: bool = False
 
     def describe(self) -> str:
         """One line for the shift report."""
-        return (f"{self.level}: {self.direction} ground x{self.contrast_factor:.2g} at chainage "
-                f"{self.chainage_m:.1f} m ({self.chainage_lo_m:.1f}-{self.chainage_hi_m:.1f}), "
-                f"{self.distance_ahead_m:.1f} m ahead of the last face; seen in "
-                f"{self.n_advances} advances, confidence {self.confidence:.2f}")
+        hi = (f"{self.chainage_hi_m:.1f}" if math.isfinite(self.chainage_hi_m)
+              else "beyond reach")
+        if self.at_bound or self.contrast_open:
+            factor = _factor_text(self.direction, self.contrast_lo, self.contrast_hi, True) \
+                or "contrast at the fit's bound"
+            what = f"{self.direction} ground, {factor}"
+        else:
+            what = f"{self.direction} ground x{self.contrast_factor:.2g}"
+            rng = _factor_text(self.direction, self.contrast_lo, self.contrast_hi, False)
+            what += f" ({rng})" if rng else ""
+        line = (f"{self.level}: {what} at chainage {self.chainage_m:.1f} m "
+                f"({self.chainage_lo_m:.1f}-{hi}), {self.distance_ahead_m:.1f} m ahead of the "
+                f"last face; seen in {self.n_advances} advances")
+        if math.isfinite(self.p_false_alarm):
+            rate = (f"{self.p_false_alarm:.2g}" if self.p_false_alarm >= 1e-4
+                    else "below 1e-4")
+            line += (f"; false-alarm rate {rate} (share of simulated drives without a "
+                     "contact that score as high)")
+        else:
+            line += "; no calibrated statistic"
+        if self.ambiguous and self.parts:
+            line += "; the data allow several distances: chainage " + ", ".join(
+                f"{a:.1f}-{b:.1f} m" if math.isfinite(b) else f"{a:.1f} m-beyond reach"
+                for a, b in self.parts)
+        if self.at_bound:
+            line += "; result at a bound of the fit: kept at the lowest level"
+        return line
 
 
 @dataclass
@@ -225,7 +295,8 @@ class AheadSummary:
         lines = [f"level of concern: {self.level}"]
         if not self.changes:
             lines.append(f"no change seen within {self.reach_m:.1f} m ahead of the face at "
-                         f"chainage {self.last_face_chainage_m:.1f} m (covered reach)")
+                         f"chainage {self.last_face_chainage_m:.1f} m (covered reach); none "
+                         "seen is not all clear")
         lines += [c.describe() for c in self.changes]
         for c in self.passed:
             lines.append(f"reached by the face: change at chainage {c.chainage_m:.1f} m "
@@ -235,6 +306,13 @@ class AheadSummary:
                          f"{r.distance_ahead_m:.1f} m ahead, seen in {r.n_advances} advances")
         if self.advances_flagged:
             lines.append(f"advances left out for their data fit: {self.advances_flagged}")
+        if any(c.source == "contact fit" or "contact fit" in c.source for c in self.changes):
+            lines.append("levels: 'likely' and 'firm' need the latest contact fit's "
+                         "false-alarm rate (measured on simulated drives without a "
+                         "contact) at or below "
+                         f"{self.settings.likely_p_false_alarm:g} and "
+                         f"{self.settings.firm_p_false_alarm:g}; a fit at a bound of its "
+                         "parameters stays at 'watch'; a one-sided contrast is never 'firm'")
         return lines
 
 
@@ -285,20 +363,38 @@ def _picks(ds: xr.Dataset, advances: list[int], st: AheadSettings, radius_m: flo
         ch = float(sub["contact_chainage_m"]) if "contact_chainage_m" in ds else math.nan
         p_none = float(sub["contact_p_none"]) if "contact_p_none" in ds else math.nan
         if math.isfinite(ch) and not (p_none > st.max_p_no_contact):
-            around = float(sub["resistivity_around"]) if "resistivity_around" in ds else math.nan
-            beyond = float(sub["resistivity_beyond"])
+            def val(name: str, default: float = math.nan, sub: xr.Dataset = sub) -> float:
+                return float(sub[name]) if name in ds else default
+
+            around = val("resistivity_around")     # the joint fit's shared value
+            beyond = val("resistivity_beyond")
             if not (around > 0):  # no fitted value around the machine: the profile near the face
                 a, p = axial_profile(ds, adv, radius_m)
                 near = p[a <= max(3.0, 2 * cell_m)]
                 around = float(10.0 ** np.median(near)) if near.size else math.nan
-            c = (math.log10(beyond / around) if around > 0 and beyond > 0 else math.nan)
+            ratio = val("contact_contrast")
+            if not (ratio > 0) and around > 0 and beyond > 0:
+                ratio = beyond / around
+            c = math.log10(ratio) if ratio > 0 else math.nan
             if math.isfinite(c) and abs(c) < min_c:
                 continue
             lo = face + float(sub["contact_ahead_lo_m"])
             hi = face + float(sub["contact_ahead_hi_m"])  # NaN: open beyond the fit's reach
             lo = lo if math.isfinite(lo) else ch - cell_m
-            hi = hi if math.isfinite(hi) else ch + cell_m
-            out.append(Pick(adv, face, ch, lo, hi, c, around, beyond, "contact fit", p_none))
+            hi = hi if math.isfinite(hi) else math.inf
+            parts: tuple[tuple[float, float], ...] = ()
+            if "contact_part_lo_m" in ds:
+                plo = np.atleast_1d(sub["contact_part_lo_m"].values)
+                phi = np.atleast_1d(sub["contact_part_hi_m"].values)
+                parts = tuple((face + float(x), face + float(y))
+                              for x, y in zip(plo, phi) if math.isfinite(x))
+            out.append(Pick(adv, face, ch, lo, hi, c, around, beyond, "contact fit", p_none,
+                            calibrated=math.isfinite(val("contact_lr_statistic")),
+                            at_bound=bool(val("contact_at_bound", 0.0)),
+                            ambiguous=bool(val("contact_ambiguous", 0.0)),
+                            contrast_lo=val("contact_contrast_lo"),
+                            contrast_hi=val("contact_contrast_hi"), parts_m=parts,
+                            contrast_open=bool(val("contact_contrast_open", 0.0))))
             continue
         a, p = axial_profile(ds, adv, radius_m)
         fit = _step_fit(a, p, st.min_cells_each_side)
@@ -392,6 +488,11 @@ def detect_changes(ds: xr.Dataset, settings: AheadSettings | None = None) -> Ahe
     changes: list[Change] = []
     rejected: list[Change] = []
     passed: list[Change] = []
+    # the latest clean advance with a contact fit carries the evidence of its whole window
+    latest = None
+    if window and "contact_p_none" in ds:
+        fitted = [a for a in window if math.isfinite(float(ds["contact_p_none"].sel(advance=a)))]
+        latest = fitted[-1] if fitted else None
     for g in _groups(picks, tol):
         slope, slope_se = _slope(g)
         ch = np.array([q.chainage_m for q in g])
@@ -411,24 +512,56 @@ def detect_changes(ds: xr.Dataset, settings: AheadSettings | None = None) -> Ahe
             reasons.append(f"pick chainage moves {slope:+.2f}{se} m per m of advance "
                            "(weighted by the picks' uncertainties)")
         n = len(g)
+        cur = next((q for q in g if q.advance == latest and q.source == "contact fit"), None)
         level = "watch"
+        p_fa = math.nan
+        at_bound = ambiguous = False
+        c_lo = c_hi = math.nan
+        c_open = False
+        parts: tuple[tuple[float, float], ...] = ()
+        if cur is not None:
+            p_fa = cur.p_no_contact if cur.calibrated else math.nan
+            at_bound, ambiguous = cur.at_bound, cur.ambiguous
+            c_lo, c_hi, parts = cur.contrast_lo, cur.contrast_hi, cur.parts_m
+            c_open = cur.contrast_open
+            med, lo, hi = cur.chainage_m, cur.chainage_lo_m, cur.chainage_hi_m
+            if math.isfinite(cur.contrast_log10):
+                contrast = cur.contrast_log10
+            around, beyond = cur.resistivity_around_ohmm, cur.resistivity_beyond_ohmm
         if math.isfinite(slope) and abs(slope) >= st.artefact_slope:
             kind = "rejected"
         else:
             kind = "change"
-            stationary = math.isfinite(slope) and abs(slope) <= st.max_slope
-            if stationary and n >= st.firm_advances and math.isfinite(contrast) and \
-                    abs(contrast) >= math.log10(st.firm_contrast):
-                level = "firm"
-            elif stationary and n >= st.likely_advances:
-                level = "likely"
-            elif not stationary and n > 1:
+            # stationary: slope small, or not told apart from 0 (two standard errors); the
+            # latest fit itself already holds one chainage over its window
+            stationary = (not math.isfinite(slope) or abs(slope) <= st.max_slope
+                          or (math.isfinite(slope_se) and abs(slope) <= 2.0 * slope_se))
+            excludes_one = not (c_lo <= 1.0 <= c_hi)      # NaN bounds: not known, no veto
+            if cur is None:
+                reasons.append("not supported by the latest contact fit: kept at 'watch'")
+            elif not math.isfinite(p_fa):
+                reasons.append("no calibrated statistic: kept at 'watch'")
+            elif at_bound:
+                reasons.append("result at a bound of the fit (contrast at a table end or "
+                               "distance at the grid's end): kept at the lowest level")
+            elif not stationary:
                 reasons.append("pick chainage drifts: kept at the lowest level")
-        p_none = np.array([q.p_no_contact for q in g if math.isfinite(q.p_no_contact)])
-        conf = (n / max(len(window), 1)) * (1.0 - (float(np.median(p_none)) if p_none.size
-                                                   else 0.0))
-        if math.isfinite(contrast):
-            conf *= min(1.0, abs(contrast) / math.log10(st.firm_contrast))
+            elif (p_fa <= st.firm_p_false_alarm and n >= st.firm_advances and not ambiguous
+                  and not c_open and excludes_one and math.isfinite(contrast)
+                  and abs(contrast) >= math.log10(st.firm_contrast)):
+                level = "firm"
+            elif p_fa <= st.likely_p_false_alarm and n >= st.likely_advances:
+                level = "likely"
+            elif p_fa > st.likely_p_false_alarm:
+                reasons.append(f"false-alarm rate {p_fa:.2g} above "
+                               f"{st.likely_p_false_alarm:g}: kept at 'watch'")
+            else:
+                reasons.append(f"seen in fewer than {st.likely_advances} advances: kept at "
+                               "'watch'")
+            if ambiguous:
+                reasons.append(f"{len(parts)} separate distance ranges fit the data")
+            if c_open:
+                reasons.append("contrast interval open at the fit's bound: not 'firm'")
         if not math.isfinite(contrast):
             direction = "unknown direction"
         else:
@@ -439,14 +572,18 @@ def detect_changes(ds: xr.Dataset, settings: AheadSettings | None = None) -> Ahe
                    contrast_factor=float(10 ** abs(contrast)) if math.isfinite(contrast)
                    else math.nan,
                    resistivity_around_ohmm=around, resistivity_beyond_ohmm=beyond,
-                   confidence=float(min(max(conf, 0.0), 1.0)), n_advances=n,
+                   p_false_alarm=p_fa, n_advances=n,
                    slope=slope, source=", ".join(sorted({q.source for q in g})),
-                   advances=tuple(sorted(q.advance for q in g)), reasons=tuple(reasons))
+                   advances=tuple(sorted(q.advance for q in g)), reasons=tuple(reasons),
+                   at_bound=at_bound, ambiguous=ambiguous, contrast_lo=c_lo, contrast_hi=c_hi,
+                   parts=parts, contrast_open=c_open)
         if kind == "change" and c.distance_ahead_m < 0:
             passed.append(c)  # the face has reached it: no longer ahead
             continue
         (rejected if kind == "rejected" else changes).append(c)
-    changes.sort(key=lambda c: (-LEVELS.index(c.level), -c.confidence))
+    changes.sort(key=lambda c: (-LEVELS.index(c.level),
+                                c.p_false_alarm if math.isfinite(c.p_false_alarm) else 2.0,
+                                -c.n_advances))
     if changes:
         _LOG.info("change ahead: %s", changes[0].describe())
     return AheadSummary(changes, rejected, picks, last_face, reach, clean, flagged, st, passed)

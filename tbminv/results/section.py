@@ -8,7 +8,10 @@ parametric :class:`ContactFit`). :func:`build_section` stacks them into an
 section-store contract (variables ``resistivity``, ``conductivity``, ``coverage``, ``chi2``,
 ``rrms``, ``iterations``, ``lambda``, ``face_chainage_m``, ``contact_ahead_m``,
 ``contact_ahead_lo_m``, ``contact_ahead_hi_m``, ``contact_chainage_m``,
-``resistivity_beyond``) plus a coverage / depth-of-investigation mask (``covered``), fit flags
+``resistivity_beyond``, ``contact_contrast`` with ``contact_contrast_lo``/``_hi``,
+``contact_at_bound``, ``contact_contrast_open``, ``contact_ambiguous``,
+``contact_part_lo_m``/``_hi_m``,
+``contact_lr_statistic``) plus a coverage / depth-of-investigation mask (``covered``), fit flags
 (``fit_flag``), shift labels (``shift``) and CF-1.8 / provenance attributes.
 
 The store is one NetCDF-4 file (h5netcdf engine). :func:`append_shift` reads it fully, drops
@@ -239,6 +242,17 @@ def build_section(results: Sequence[AdvanceResult], layout_text: str, settings_t
                 out[i] = getattr(c, name)
         return out
 
+    def contact_flag(name: str) -> np.ndarray:
+        return np.array([bool(r.contact is not None and getattr(r.contact, name, False))
+                         for r in res], np.int8)
+
+    n_parts = max([len(r.contact.parts_m) for r in res if r.contact is not None] + [1])
+    parts = np.full((adv.size, n_parts, 2), np.nan)
+    for i, r in enumerate(res):
+        if r.contact is not None and r.contact.found:
+            for j, (lo_, hi_) in enumerate(r.contact.parts_m):
+                parts[i, j] = (lo_, hi_)
+
     # ISO 8601 times with or without a zone (no zone: UTC), stored as UTC without a zone
     times = (pd.to_datetime([r.time or None for r in res], utc=True, format="ISO8601")
              .tz_localize(None).to_numpy(dtype="datetime64[ns]"))
@@ -312,12 +326,48 @@ def build_section(results: Sequence[AdvanceResult], layout_text: str, settings_t
         "resistivity_beyond": (da, contact_field("resistivity_beyond_ohmm"),
                                _attrs("fitted resistivity beyond the contact", "ohm m")),
         "contact_p_none": (da, contact_field("p_no_contact"), _attrs(
-            "probability of no contact within reach", "1",
-            comment="posterior weight of the homogeneous model against the contact model "
-                    "with equal priors; NaN: not computed")),
+            "calibrated false-alarm probability of the contact statistic", "1",
+            comment="share of simulated homogeneous drives whose likelihood-ratio statistic "
+                    "reaches contact_lr_statistic (tbminv.inversion.nullcal); a p-value of "
+                    "'no contact within reach', not the probability that there is none; "
+                    "NaN: not computed")),
         "contact_p_homogeneous": (da, contact_field("p_homogeneous"), _attrs(
-            "p-value of the homogeneous model against the contact model", "1",
-            comment="likelihood-ratio test; small: the data need a contact; NaN: not computed")),
+            "calibrated p-value of the homogeneous model", "1",
+            comment="same value as contact_p_none; NaN: not computed")),
+        "contact_lr_statistic": (da, contact_field("lr_statistic"), _attrs(
+            "likelihood-ratio statistic of the contact against no contact", "1",
+            comment="(chi2_homogeneous - chi2_min) / max(1, reduced chi2) of the joint fit "
+                    "over the window of advances; NaN: not computed")),
+        "contact_contrast": (da, contact_field("contrast"), _attrs(
+            "resistivity beyond the contact over resistivity around the machine", "1",
+            comment="resistivity_beyond / resistivity_around; NaN: no contact within reach")),
+        "contact_contrast_lo": (da, contact_field("contrast_lo"), _attrs(
+            "lower bound of contact_contrast", "1",
+            comment="profile-likelihood interval at contact_interval_level")),
+        "contact_contrast_hi": (da, contact_field("contrast_hi"), _attrs(
+            "upper bound of contact_contrast", "1",
+            comment="profile-likelihood interval at contact_interval_level")),
+        "contact_at_bound": (da, contact_flag("at_bound"), _attrs(
+            "contact result at a bound of the fit", None,
+            flag_values=np.array([0, 1], np.int8), flag_meanings="inside at_bound",
+            comment="best contrast at a table end, or the distance or its interval at the "
+                    "first or last grid point: never reported above the lowest level of "
+                    "concern")),
+        "contact_contrast_open": (da, contact_flag("contrast_open"), _attrs(
+            "contact contrast interval reaches a table end", None,
+            flag_values=np.array([0, 1], np.int8), flag_meanings="closed open",
+            comment="one-sided contrast answer (e.g. 'x5 or more'); never reported as firm")),
+        "contact_ambiguous": (da, contact_flag("ambiguous"), _attrs(
+            "contact distance set has several separate parts", None,
+            flag_values=np.array([0, 1], np.int8), flag_meanings="single ambiguous",
+            comment="contact_ahead_lo_m and contact_ahead_hi_m span all parts; the parts "
+                    "are contact_part_lo_m and contact_part_hi_m")),
+        "contact_part_lo_m": (("advance", "contact_part"), parts[..., 0], _attrs(
+            "lower end of a part of the contact distance set", "m",
+            comment="ahead of the face; NaN: no such part")),
+        "contact_part_hi_m": (("advance", "contact_part"), parts[..., 1], _attrs(
+            "upper end of a part of the contact distance set", "m",
+            comment="ahead of the face; NaN: no such part, or open beyond reach")),
         "shift": (da, np.array([shift] * adv.size, dtype=object), _attrs("shift label")),
         "inputs_sha256": (da, np.array([inputs_sha256] * adv.size, dtype=object),
                           _attrs("SHA-256 of the inputs of the advance")),
@@ -337,6 +387,8 @@ def build_section(results: Sequence[AdvanceResult], layout_text: str, settings_t
         tdim: (tdim, radius, _attrs("distance from the tunnel axis", "m")
                if tdim == "radius" else
                _attrs("height above the tunnel axis", "m", comment="positive up")),
+        "contact_part": ("contact_part", np.arange(n_parts, dtype=np.int32),
+                         _attrs("part of the contact distance set", "1")),
         "iteration": ("iteration", np.arange(n_it, dtype=np.int32),
                       _attrs("inversion iteration (0: starting model)", "1")),
     }

@@ -32,7 +32,8 @@ def test_stationary_contact_from_contact_fits_is_firm():
     assert c.chainage_m == pytest.approx(1230.0, abs=3.0)  # within 0.5 D (D = 6 m)
     assert c.direction == "less resistive" and c.contrast_factor > 3
     assert c.distance_ahead_m == pytest.approx(1230.0 - 1210.5, abs=3.0)
-    assert 0.5 < c.confidence <= 1.0
+    # the level comes from the stored calibrated probability of the latest fit (0.001 here)
+    assert c.p_false_alarm == pytest.approx(0.001) and not c.at_bound
     assert c.chainage_lo_m <= 1230.0 <= c.chainage_hi_m
 
 
@@ -43,7 +44,9 @@ def test_stationary_contact_from_section_profile(beyond, direction):
                                     noise_log10=0.01))
     assert s.changes, s.describe()
     c = s.changes[0]
-    assert c.level in ("likely", "firm")
+    # a section-profile step has no calibrated false-alarm rate: never above 'watch'
+    assert c.level == "watch" and not np.isfinite(c.p_false_alarm)
+    assert any("no calibrated statistic" in r or "latest contact fit" in r for r in c.reasons)
     assert c.direction == direction
     assert c.chainage_m == pytest.approx(1230.0, abs=3.0)
     assert abs(c.slope) < 0.35
@@ -167,3 +170,51 @@ def test_far_wide_picks_do_not_hide_a_stationary_contact():
              for i, (f, c, h) in enumerate(zip(faces, chain, half))]
     (g,) = _groups(picks, 3.0 * 2)
     assert abs(_slope(g)[0]) < 0.35
+
+
+def test_contact_fit_at_a_bound_is_capped_at_the_lowest_level():
+    # our own rule (tbminv.results.ahead): a fit whose contrast or distance touches a bound of
+    # its parameters never goes above 'watch', however small its false-alarm probability
+    ds = make_section(range(8), rho_beyond=12.0,
+                      contact_extra={"at_bound": True, "contrast_lo": 0.001,
+                                     "contrast_hi": 0.3})
+    assert ds["contact_at_bound"].values.all()
+    s = detect_changes(ds)
+    assert s.level == "watch" and s.changes[0].at_bound, s.describe()
+    text = " ".join(s.describe())
+    assert "bound of the fit" in text and "or more" in text
+
+
+def test_ambiguous_fit_lists_every_part_and_is_not_firm():
+    # two parts of the distance set (a near-weak and a far-strong contact both fit): the
+    # report lists both and the level stays below 'firm'
+    parts = ((18.0, 19.5), (25.0, 28.0))
+    ds = make_section(range(8), rho_beyond=12.0,
+                      contact_extra={"ambiguous": True, "parts_m": parts})
+    assert ds["contact_ambiguous"].values.all()
+    np.testing.assert_allclose(ds["contact_part_hi_m"].values[-1], [19.5, 28.0])
+    s = detect_changes(ds)
+    c = s.changes[0]
+    assert c.level == "likely" and c.ambiguous and len(c.parts) == 2
+    face = float(ds["face_chainage_m"].values[-1])
+    assert f"chainage {face + 18.0:.1f}-{face + 19.5:.1f} m" in c.describe()
+    assert f"{face + 25.0:.1f}-{face + 28.0:.1f} m" in c.describe()
+
+
+def test_uncalibrated_contact_fits_stay_at_watch():
+    # a store written before the calibrated statistic (no contact_lr_statistic): its
+    # 'p_none' is not a calibrated rate, so no level above 'watch'
+    ds = make_section(range(8), rho_beyond=12.0).drop_vars("contact_lr_statistic")
+    s = detect_changes(ds)
+    assert s.level == "watch" and not np.isfinite(s.changes[0].p_false_alarm)
+
+
+def test_one_sided_contrast_is_never_firm():
+    # our own rule (tbminv.results.ahead): a contrast interval that reaches the fit's table
+    # end is reported one-sided ("x... or more") and stays below 'firm'
+    ds = make_section(range(8), rho_beyond=12.0,
+                      contact_extra={"contrast_open": True, "contrast_lo": 0.001,
+                                     "contrast_hi": 0.25})
+    c = detect_changes(ds).changes[0]
+    assert c.level == "likely" and c.contrast_open
+    assert "x4 or more" in c.describe()

@@ -34,17 +34,23 @@ ROOT = Path(__file__).resolve().parents[2]
 
 def test_build_section_contract_variables_and_cf_attrs():
     ds = make_section(rho_beyond=12.0, flagged=(3,))
-    assert dict(ds.sizes) | {} == {"advance": 5, "ahead": 69, "radius": 16, "iteration": 4}
+    assert dict(ds.sizes) | {} == {"advance": 5, "ahead": 69, "radius": 16, "iteration": 4,
+                                   "contact_part": 1}
     assert ds["resistivity"].dims == ("advance", "ahead", "radius")
     # the store's variables (DEVELOPERS.md, file formats)
     for name in ("resistivity", "conductivity", "coverage", "chi2", "rrms", "iterations",
                  "lambda", "face_chainage_m", "contact_ahead_m", "contact_ahead_lo_m",
                  "contact_ahead_hi_m", "contact_chainage_m", "resistivity_beyond",
-                 "covered", "fit_flag", "shift"):
+                 "contact_contrast", "contact_contrast_lo", "contact_contrast_hi",
+                 "contact_at_bound", "contact_contrast_open", "contact_ambiguous",
+                 "contact_part_lo_m",
+                 "contact_part_hi_m", "contact_lr_statistic", "covered", "fit_flag", "shift"):
         assert name in ds, name
     assert ds.attrs["Conventions"] == "CF-1.8"
     units = {"resistivity": "ohm m", "conductivity": "S m-1", "face_chainage_m": "m",
-             "contact_ahead_m": "m", "rrms": "percent", "ahead": "m", "radius": "m"}
+             "contact_ahead_m": "m", "rrms": "percent", "ahead": "m", "radius": "m",
+             "contact_contrast": "1", "contact_contrast_lo": "1", "contact_contrast_hi": "1",
+             "contact_part_lo_m": "m"}
     for name, u in units.items():
         assert ds[name].attrs["units"] == u
         assert ds[name].attrs["long_name"]
@@ -288,3 +294,19 @@ def test_store_passes_cf_checker(tmp_path):
         output_format="json")
     assert not errors
     assert passed, report.read_text()
+
+
+def test_contact_parts_of_different_shifts_share_the_store(tmp_path):
+    # one part per advance in the first shift, two in the second: the store pads with NaN
+    store = tmp_path / "s.nc"
+    append_shift(store, make_section(range(3), rho_beyond=12.0), shift="A")
+    two = {"parts_m": ((1.0, 2.0), (3.0, 4.0)), "ambiguous": True}
+    append_shift(store, make_section(range(3, 6), rho_beyond=12.0, contact_extra=two),
+                 shift="B")
+    ds = open_section(store)
+    assert ds.sizes["contact_part"] == 2
+    np.testing.assert_allclose(ds["contact_part_lo_m"].values[4], [1.0, 3.0])
+    assert np.isnan(ds["contact_part_lo_m"].values[0, 1])
+    assert ds["contact_ambiguous"].dtype == np.int8
+    assert ds["contact_ambiguous"].values.tolist() == [0, 0, 0, 1, 1, 1]
+    assert ds["contact_contrast"].attrs["units"] == "1"
