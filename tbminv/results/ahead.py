@@ -190,16 +190,24 @@ class Pick:
         return self.chainage_m - self.face_chainage_m
 
 
+def _factor(v: float) -> str:
+    """A contrast factor for reading: two significant digits, whole numbers from 100."""
+    return f"{v:.2g}" if v < 100 else f"{v:,.0f}"
+
+
 def _factor_text(direction: str, lo: float, hi: float, at_bound: bool) -> str:
-    """Contrast interval as the factor of the change, e.g. ``x3.1-x15`` or ``x20 or more``."""
+    """Contrast interval as the factor of the change, e.g. ``by a factor of 3.1-15``.
+
+    ``direction`` says which way the resistivity changes; the factor is always >= 1.
+    """
     if not (math.isfinite(lo) and math.isfinite(hi)):
         return ""
     f_lo, f_hi = (lo, hi) if direction == "more resistive" else (1.0 / hi, 1.0 / lo)
     if lo <= 1.0 <= hi:
         return "contrast interval includes 1 (no change)"
     if at_bound:
-        return f"x{min(f_lo, f_hi):.2g} or more (the fit's bound)"
-    return f"x{f_lo:.2g}-x{f_hi:.2g}"
+        return f"by a factor of {_factor(min(f_lo, f_hi))} or more (the fit's bound)"
+    return f"by a factor of {_factor(f_lo)}-{_factor(f_hi)}"
 
 
 @dataclass(frozen=True)
@@ -243,9 +251,11 @@ class Change:
                 or "contrast at the fit's bound"
             what = f"{self.direction} ground, {factor}"
         else:
-            what = f"{self.direction} ground x{self.contrast_factor:.2g}"
+            what = f"{self.direction} ground by a factor of {_factor(self.contrast_factor)}"
             rng = _factor_text(self.direction, self.contrast_lo, self.contrast_hi, False)
-            what += f" ({rng})" if rng else ""
+            if rng:
+                what += (f" (interval {rng.removeprefix('by a factor of ')})"
+                         if rng.startswith("by a factor") else f" ({rng})")
         line = (f"{self.level}: {what} at chainage {self.chainage_m:.1f} m "
                 f"({self.chainage_lo_m:.1f}-{hi}), {self.distance_ahead_m:.1f} m ahead of the "
                 f"last face; seen in {self.n_advances} advances")

@@ -211,10 +211,10 @@ def test_uncalibrated_contact_fits_stay_at_watch():
 
 def test_one_sided_contrast_is_never_firm():
     # our own rule (tbminv.results.ahead): a contrast interval that reaches the fit's table
-    # end is reported one-sided ("x... or more") and stays below 'firm'
+    # end is reported one-sided ("by a factor of ... or more") and stays below 'firm'
     ds = make_section(range(8), rho_beyond=12.0,
                       contact_extra={"contrast_open": True, "contrast_lo": 0.001,
                                      "contrast_hi": 0.25})
     c = detect_changes(ds).changes[0]
     assert c.level == "likely" and c.contrast_open
-    assert "x4 or more" in c.describe()
+    assert "by a factor of 4 or more" in c.describe()
