@@ -206,8 +206,9 @@ def write_report(store_path: str | Path, out_dir: str | Path,
         f"  why: {'; '.join(c.reasons)}; from {c.source}" for c in summary.changes]
     mat_lines = [f"{label}: {val} -> {names}" for label, val, names in mat_rows] or [
         "no resistivity to classify"]
-    mat_lines += ["Every class whose range overlaps is listed: the ranges overlap (clay and "
-                  "till can share a value), resistivity alone does not decide.",
+    mat_lines += ["Every class whose range overlaps is listed: the ranges overlap (a "
+                  "water-bearing sand and a silt can both read 60 ohm-m), resistivity alone "
+                  "does not decide.",
                   f"table: {table.source}"]
     changes_pages = _text_pages("Changes ahead and candidate materials", [
         ("Changes detected (distance from the last face of the shift)", change_lines),
