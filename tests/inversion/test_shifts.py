@@ -177,7 +177,7 @@ def test_repeated_advances_are_skipped_and_conflicts_fail(tmp_path, chained, cap
     lines: list[str] = []
     assert invert_job(again, DATA / "fixture_layout.toml", store, settings_path=settings,
                       progress=False, echo=lines.append) == 0
-    assert lines and lines[0].startswith("nothing to invert"), lines
+    assert any(line.startswith("nothing to invert") for line in lines), lines
     assert open_section(store).sizes["advance"] == 11
     # an advance number stored at another face chainage is a true conflict: one clear error
     moved = pd.read_csv(second, dtype=str, keep_default_na=False)
