@@ -103,3 +103,18 @@ def make_section(advances=range(5), shift="A", **kw):
                          inputs_sha256="0" * 64, shift=shift)
 
 
+
+
+def assert_cf_compliant(store: Path, tmp_path: Path) -> None:
+    """The store passes the IOOS compliance checker's CF-1.8 suite (a general-purpose reference
+    implementation of the CF conventions); skips when the checker is not installed."""
+    import pytest  # late: helpers is imported by test modules only
+
+    runner = pytest.importorskip("compliance_checker.runner")
+    runner.CheckSuite.load_all_available_checkers()
+    report = tmp_path / "cf.json"
+    passed, errors = runner.ComplianceChecker.run_checker(
+        str(store), ["cf:1.8"], verbose=0, criteria="normal", output_filename=str(report),
+        output_format="json")
+    assert not errors
+    assert passed, report.read_text()

@@ -27,7 +27,13 @@ from tbminv.results.section import (
     world_view,
 )
 from tbminv.results.store import append_shift, open_section
-from tests.helpers import LAYOUT_TEXT, SETTINGS_TEXT, make_results, make_section
+from tests.helpers import (
+    LAYOUT_TEXT,
+    SETTINGS_TEXT,
+    assert_cf_compliant,
+    make_results,
+    make_section,
+)
 
 ROOT = Path(__file__).resolve().parents[2]
 
@@ -283,17 +289,10 @@ def test_store_readable_by_netcdf4_library(tmp_path):
 @pytest.mark.filterwarnings("ignore::DeprecationWarning")
 def test_store_passes_cf_checker(tmp_path):
     # the IOOS compliance checker (optional: pip install compliance-checker) on the CF-1.8 suite
-    runner = pytest.importorskip("compliance_checker.runner")
     store = tmp_path / "s.nc"
     append_shift(store, make_section(range(3), rho_beyond=12.0, doi=True), shift="A")
     append_shift(store, make_section(range(3, 5), rho_beyond=12.0), shift="B")
-    runner.CheckSuite.load_all_available_checkers()
-    report = tmp_path / "cf.json"
-    passed, errors = runner.ComplianceChecker.run_checker(
-        str(store), ["cf:1.8"], verbose=0, criteria="normal", output_filename=str(report),
-        output_format="json")
-    assert not errors
-    assert passed, report.read_text()
+    assert_cf_compliant(store, tmp_path)
 
 
 def test_contact_parts_of_different_shifts_share_the_store(tmp_path):
