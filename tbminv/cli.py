@@ -37,7 +37,7 @@ from tbminv.inversion.settings import InversionError, load_settings
 from tbminv.jobs import invert_job, reach_job, report_job, run_check
 from tbminv.layout import LayoutError, load_layout
 from tbminv.materials import MaterialTableError
-from tbminv.readings.qc import QCError, QCSettings
+from tbminv.readings.qc import QCError
 from tbminv.readings.reader import ReadingsError
 from tbminv.results.ahead import AheadSettingsError
 from tbminv.studies.simulate import simulate_drive, write_readings
@@ -120,9 +120,10 @@ def cmd_simulate(args: argparse.Namespace) -> int:
 def cmd_check(args: argparse.Namespace) -> int:
     """Run ``tbminv check``."""
     layout = load_layout(args.layout)
-    settings = QCSettings.from_toml(args.settings) if args.settings else None
-    floor = load_settings(args.settings)[0].model_error_floor   # [invert], shown in the flags
-    result = run_check(args.readings, layout, args.out, settings, model_error_floor=floor)
+    inversion, qc = load_settings(args.settings)   # [invert]: the floor shown in the flags
+    result = run_check(args.readings, layout, args.out, qc,
+                       model_error_floor=inversion.model_error_floor,
+                       forward_settings=inversion.forward_settings)
     for line in result.describe():
         print(line)
     return 0 if result.usable else 1

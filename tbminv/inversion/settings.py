@@ -11,7 +11,7 @@ from typing import Any
 
 from tbminv.inversion.contactfit import ContactFitSettings
 from tbminv.readings.qc import QCSettings
-from tbminv.tomlfile import read_toml
+from tbminv.tomlfile import check_keys, read_toml
 
 _LOG = logging.getLogger(__name__)
 
@@ -156,22 +156,13 @@ def load_settings(path: str | Path | None) -> tuple[InversionSettings, QCSetting
         return InversionSettings(), QCSettings()
     p = Path(path)
     data = read_toml(p, InversionError, "settings file")
-    unknown = set(data) - {"invert", "contact", "qc", "ahead", "section"}
-    if unknown:
-        raise InversionError(f"{p}: unknown table(s) {', '.join(sorted(unknown))}; expected "
-                             "[invert], [contact], [qc], [ahead], [section]")
+    check_keys(data, ("invert", "contact", "qc", "ahead", "section"), f"{p}", InversionError)
     inv = dict(data.get("invert", {}))
-    names = {f.name for f in dataclasses.fields(InversionSettings)} - {"contact"}
-    for k in inv:
-        if k not in names:
-            raise InversionError(f"{p}: [invert] {k}: unknown setting; expected one of "
-                                 f"{', '.join(sorted(names))}")
+    check_keys(inv, {f.name for f in dataclasses.fields(InversionSettings)} - {"contact"},
+               f"{p}: [invert]", InversionError)
     con = dict(data.get("contact", {}))
-    cnames = {f.name for f in dataclasses.fields(ContactFitSettings)}
-    for k in con:
-        if k not in cnames:
-            raise InversionError(f"{p}: [contact] {k}: unknown setting; expected one of "
-                                 f"{', '.join(sorted(cnames))}")
+    check_keys(con, {f.name for f in dataclasses.fields(ContactFitSettings)},
+               f"{p}: [contact]", InversionError)
     for k, v in list(con.items()):
         if isinstance(v, list):
             con[k] = tuple(float(x) for x in v)
