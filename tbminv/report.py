@@ -88,9 +88,17 @@ def _materials_rows(ds: xr.Dataset, summary: AheadSummary,
         hi = float(np.nanmax(prof["hi_ohmm"][near]))
         vals.append(("ground at the face (0-3 m ahead)", lo, hi if hi > lo else None))
     face = float(ds["face_chainage_m"].values[-1])
+    unclassified: list[tuple[str, str, str]] = []
     for c in summary.changes:
         b = c.resistivity_beyond_ohmm
         if not np.isfinite(b):
+            continue
+        if c.at_bound or c.contrast_open:
+            # a contrast at (or open to) the fit's bound is a limit, not a value: naming a
+            # material from it would state more than the data hold
+            unclassified.append((f"beyond chainage {c.chainage_m:.1f} m ({c.level})",
+                                 f"{b:.3g} ohm-m is the fit's bound, not a value",
+                                 "not classified"))
             continue
         far = (prof["ahead_m"] >= c.chainage_hi_m - face + 1.0) & prof["covered"]
         if far.any():  # the band of the covered profile beyond the contact
@@ -102,7 +110,7 @@ def _materials_rows(ds: xr.Dataset, summary: AheadSummary,
         else:
             vals.append((f"beyond chainage {c.chainage_m:.1f} m ({c.level}, fitted value)",
                          b, None))
-    return candidate_table_rows(vals, table)
+    return candidate_table_rows(vals, table) + unclassified
 
 
 def _qc_lines(qc: Mapping[str, Any] | None) -> list[str]:

@@ -120,3 +120,17 @@ def test_report_cli_takes_ahead_settings_and_site_table(store, tmp_path, capsys)
     rc = main(["report", str(store), "--out", str(tmp_path / "q"), "--materials", str(site)])
     err = capsys.readouterr().err
     assert rc == 2 and "low_ohmm" in err and str(site) in err
+
+
+def test_a_contrast_at_the_fits_bound_names_no_material(tmp_path):
+    # our own rule (tbminv.report): a resistivity beyond that is the fit's bound is a limit,
+    # not a value, so the report names no material from it; a handbook table would otherwise
+    # turn 0.08 ohm-m into "saline groundwater" (Reynolds 2011 table 7.1, from memory)
+    path = tmp_path / "bound.nc"
+    append_shift(path, make_section(range(8), rho_beyond=0.08,
+                                    contact_extra={"at_bound": True, "contrast_lo": 0.001,
+                                                   "contrast_hi": 0.001}), "day-1")
+    pdf = write_report(path, tmp_path / "out")[0]
+    text = _words(" ".join(page.extract_text() for page in PdfReader(pdf).pages))
+    assert "is the fit's bound, not a value -> not classified" in text
+    assert "saline groundwater" not in text
