@@ -38,16 +38,16 @@ LEVELS = {
 CASES = [("coarse", "P1"), ("coarse", "P2"), ("default", "P1"), ("default", "P2"),
          ("fine", "P1"), ("fine", "P2"), ("default-24seg", "P2"), ("fine-24seg", "P2")]
 FACE = 500.0
-LABELS = ["C1", "C2", "C3", "S1", "S2", "W1"]
+LABELS = ["T1", "T2", "T3", "S1", "S2", "W1"]
 
 
 def _layout(body: bool):
     from tbminv.layout import Layout
 
     els = [
-        {"label": "C1", "kind": "cutterhead", "axial_m": 0.05, "radius_m": 0.5, "angle_deg": 0},
-        {"label": "C2", "kind": "cutterhead", "axial_m": 0.05, "radius_m": 2.0, "angle_deg": 90},
-        {"label": "C3", "kind": "cutterhead", "axial_m": 0.05, "radius_m": 2.8,
+        {"label": "T1", "kind": "cutterhead", "axial_m": 0.05, "radius_m": 0.5, "angle_deg": 0},
+        {"label": "T2", "kind": "cutterhead", "axial_m": 0.05, "radius_m": 2.0, "angle_deg": 90},
+        {"label": "T3", "kind": "cutterhead", "axial_m": 0.05, "radius_m": 2.8,
          "angle_deg": 200},
         {"label": "S1", "kind": "shield", "axial_m": -2.0, "radius_m": 3.1, "angle_deg": 0},
         {"label": "S2", "kind": "shield", "axial_m": -7.0, "radius_m": 3.1, "angle_deg": 180},
@@ -59,7 +59,7 @@ def _layout(body: bool):
                     "model_body": body},
         "tunnel": {"model_cavity": body, "length_m": 30.0},
         "electrode": els,
-        "measurement": [{"a": "C1", "b": "R1", "m": "C2", "n": "R1"}]}, source="<bench>")
+        "measurement": [{"a": "T1", "b": "R1", "m": "T2", "n": "R1"}]}, source="<bench>")
 
 
 def _quads():

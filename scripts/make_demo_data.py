@@ -7,7 +7,7 @@ that the whole chain meets realistic input:
 
 * line-level faults: text in a number, a zero current, an unknown electrode label, a missing
   voltage, an angle outside [0, 360), a duplicated reading with a different value;
-* a failing contact: electrode C6 reads 80 kOhm contact resistance in two advances;
+* a failing contact: electrode T6 reads 80 kOhm contact resistance in two advances;
 * one spike: a reading 3x off in one advance.
 
 Run from the project root::
@@ -48,9 +48,9 @@ def corrupt(df: pd.DataFrame, rng: np.random.Generator) -> pd.DataFrame:
     out = pd.concat([out, dup], ignore_index=True)
     spike = pick[6]
     out.loc[spike, "voltage_v"] = float(df.loc[spike, "voltage_v"]) * 3.0
-    bad = (out["advance"].isin([3, 4])) & ((out["a"] == "C6") | (out["m"] == "C6"))
-    out.loc[bad & (out["a"] == "C6"), "contact_ohm_a"] = 80_000.0
-    out.loc[bad & (out["m"] == "C6"), "contact_ohm_m"] = 80_000.0
+    bad = (out["advance"].isin([3, 4])) & ((out["a"] == "T6") | (out["m"] == "T6"))
+    out.loc[bad & (out["a"] == "T6"), "contact_ohm_a"] = 80_000.0
+    out.loc[bad & (out["m"] == "T6"), "contact_ohm_m"] = 80_000.0
     return out
 
 

@@ -632,7 +632,7 @@ _PAIR = re.compile(r'^\s*[A-Za-z_][\w-]*\s*=\s*("[^"]*"|\'[^\']*\'|[^"\';#]+)\s*
 def _split_semicolon_pairs(text: str) -> str:
     """Put several ``key = value`` pairs separated by ``;`` on one line each.
 
-    The layout examples write a quadrupole as ``a = "M0"; b = "R1"; m = "C1"; n = "R2"``, which
+    The layout examples write a quadrupole as ``a = "BODY"; b = "R1"; m = "T1"; n = "R2"``, which
     strict TOML does not allow; such lines are accepted. Other lines are left as they are.
     """
     out = []

@@ -35,13 +35,13 @@ distances_in_diameters = [0.25, 0.5, 1.0, 2.0, 4.0, 8.0]
 def symmetric_dipole_layout():
     """Tools at 0/120/240 degrees on one ring with dipoles between them, plus machine-pole.
 
-    Each dipole ``C1-C2`` measured at ``C3`` against the centre tool ``C0`` is null-coupled in
-    axisymmetric ground (``C3`` and ``C0`` are equidistant from ``C1`` and ``C2``): the
+    Each dipole ``T1-T2`` measured at ``T3`` against the centre tool ``T0`` is null-coupled in
+    axisymmetric ground (``T3`` and ``T0`` are equidistant from ``T1`` and ``T2``): the
     homogeneous response is 0 and the relative response of the contact fit undefined.
     """
     from tbminv.layout import Layout
 
-    els = [{"label": "C0", "kind": "cutterhead", "axial_m": 0.05, "radius_m": 0.0,
+    els = [{"label": "T0", "kind": "cutterhead", "axial_m": 0.05, "radius_m": 0.0,
             "angle_deg": 0.0}]
     els += [{"label": f"C{i + 1}", "kind": "cutterhead", "axial_m": 0.05, "radius_m": 2.0,
              "angle_deg": a} for i, a in enumerate((0.0, 120.0, 240.0))]
@@ -49,9 +49,9 @@ def symmetric_dipole_layout():
              "angle_deg": 0.0},
             {"label": "S2", "kind": "shield", "axial_m": -6.0, "radius_m": 3.05,
              "angle_deg": 180.0},
-            {"label": "M0", "kind": "machine"}, {"label": "R", "kind": "remote"}]
-    dipoles = [{"a": a, "b": b, "m": m, "n": "C0"}
-               for a, b, m in (("C1", "C2", "C3"), ("C2", "C3", "C1"), ("C3", "C1", "C2"))]
+            {"label": "BODY", "kind": "machine"}, {"label": "R", "kind": "remote"}]
+    dipoles = [{"a": a, "b": b, "m": m, "n": "T0"}
+               for a, b, m in (("T1", "T2", "T3"), ("T2", "T3", "T1"), ("T3", "T1", "T2"))]
     return Layout.from_dict({
         "name": "symmetric cutterhead dipoles (test)",
         "machine": {"diameter_m": 6.0, "shield_length_m": 9.0, "cutterhead_thickness_m": 1.0},

@@ -16,16 +16,16 @@ def base() -> dict:
         "machine": {"diameter_m": 6.0, "shield_length_m": 9.0, "cutterhead_thickness_m": 1.0},
         "tunnel": {"cover_m": "inf", "lining_resistivity_ohmm": 300.0},
         "electrode": [
-            {"label": "C1", "kind": "cutterhead", "axial_m": 0.05, "radius_m": 1.0,
+            {"label": "T1", "kind": "cutterhead", "axial_m": 0.05, "radius_m": 1.0,
              "angle_deg": 0.0},
             {"label": "S1", "kind": "shield", "axial_m": -2.0, "radius_m": 3.05,
              "angle_deg": 90.0},
             {"label": "W1", "kind": "wall", "chainage_m": 95.0, "radius_m": 3.2,
              "angle_deg": 180.0},
-            {"label": "M0", "kind": "machine"},
+            {"label": "BODY", "kind": "machine"},
             {"label": "R1", "kind": "remote"},
         ],
-        "measurement": [{"a": "C1", "b": "R1", "m": "S1", "n": "R1"}],
+        "measurement": [{"a": "T1", "b": "R1", "m": "S1", "n": "R1"}],
     }
 
 
@@ -53,12 +53,12 @@ def test_round_trip_dict_with_infinite_cover():
 def test_semicolon_pairs_are_accepted(tmp_path):
     p = tmp_path / "l.toml"
     p.write_text('[machine]\ndiameter_m = 6.0\nshield_length_m = 9.0\n'
-                 '[[electrode]]\nlabel = "C1"\nkind = "cutterhead"\naxial_m = 0.05\n'
+                 '[[electrode]]\nlabel = "T1"\nkind = "cutterhead"\naxial_m = 0.05\n'
                  '[[electrode]]\nlabel = "R1"\nkind = "remote"\n'
-                 '[[electrode]]\nlabel = "M0"\nkind = "machine"\n'
-                 '[[measurement]]\na = "M0"; b = "R1"; m = "C1"; n = "R1"  # pole\n')
+                 '[[electrode]]\nlabel = "BODY"\nkind = "machine"\n'
+                 '[[measurement]]\na = "BODY"; b = "R1"; m = "T1"; n = "R1"  # pole\n')
     layout = load_layout(p)
-    assert layout.measurements == (Measurement("M0", "R1", "C1", "R1"),)
+    assert layout.measurements == (Measurement("BODY", "R1", "T1", "R1"),)
 
 
 @pytest.mark.parametrize(
@@ -67,14 +67,14 @@ def test_semicolon_pairs_are_accepted(tmp_path):
         (lambda d: d["machine"].update(diameter_m=-6.0),
          ["[machine] diameter_m", "-6.0", "> 0"]),
         (lambda d: d["electrode"][0].update(radius_m=3.5),
-         ["electrode 'C1'", "radius_m", "inside the machine radius", "<= 3.0"]),
+         ["electrode 'T1'", "radius_m", "inside the machine radius", "<= 3.0"]),
         (lambda d: d["electrode"].append(dict(d["electrode"][0])),
-         ["#6", "'C1'", "duplicate label"]),
-        (lambda d: d["measurement"].append({"a": "C1", "b": "R1", "m": "X9", "n": "R1"}),
+         ["#6", "'T1'", "duplicate label"]),
+        (lambda d: d["measurement"].append({"a": "T1", "b": "R1", "m": "X9", "n": "R1"}),
          ["[measurement] #2", "m = 'X9'", "unknown electrode label"]),
-        (lambda d: d["measurement"].append({"a": "C1", "b": "R1", "m": "C1", "n": "R1"}),
+        (lambda d: d["measurement"].append({"a": "T1", "b": "R1", "m": "T1", "n": "R1"}),
          ["[measurement] #2", "A = M", "different electrodes"]),
-        (lambda d: d["measurement"].append({"a": "C1", "b": "C1", "m": "S1", "n": "R1"}),
+        (lambda d: d["measurement"].append({"a": "T1", "b": "T1", "m": "S1", "n": "R1"}),
          ["[measurement] #2", "A = B"]),
         (lambda d: d["electrode"][1].update(axial_m=-12.0),
          ["electrode 'S1'", "axial_m", "on the shield"]),
@@ -88,7 +88,7 @@ def test_semicolon_pairs_are_accepted(tmp_path):
         (lambda d: d["tunnel"].update(cover_m=-1.0), ["[tunnel] cover_m", "> 0"]),
         (lambda d: d["machine"].update(colour="red"), ["[machine]", "unknown key", "colour"]),
         (lambda d: d["electrode"][0].update(axial_m=-0.5),
-         ["electrode 'C1'", "axial_m", "ahead of the steel"]),
+         ["electrode 'T1'", "axial_m", "ahead of the steel"]),
     ],
 )
 def test_validation_messages_name_file_table_key(mutate, fragments):
@@ -121,17 +121,17 @@ def test_angle_90_is_right_side_minus_y():
     pos = layout.positions_machine(face_chainage_m=100.0)
     s1 = pos["S1"]
     np.testing.assert_allclose(s1, [-2.0, -3.05, 0.0], atol=1e-12)
-    np.testing.assert_allclose(pos["C1"], [0.05, 0.0, 1.0], atol=1e-12)  # crown: z = +r
+    np.testing.assert_allclose(pos["T1"], [0.05, 0.0, 1.0], atol=1e-12)  # crown: z = +r
 
 
 def test_cutterhead_turns_with_logged_angle_shield_does_not():
     layout = Layout.from_dict(base())
     pos = layout.positions_machine(cutterhead_deg=90.0, face_chainage_m=100.0)
-    np.testing.assert_allclose(pos["C1"], [0.05, -1.0, 0.0], atol=1e-12)
+    np.testing.assert_allclose(pos["T1"], [0.05, -1.0, 0.0], atol=1e-12)
     np.testing.assert_allclose(pos["S1"], [-2.0, -3.05, 0.0], atol=1e-12)
     cyl = layout.positions_cylindrical(cutterhead_deg=300.0, face_chainage_m=100.0)
-    assert cyl["C1"] == pytest.approx((0.05, 1.0, 300.0))
-    assert layout.positions_cylindrical(100.0, 400.0)["C1"][2] == pytest.approx(40.0)
+    assert cyl["T1"] == pytest.approx((0.05, 1.0, 300.0))
+    assert layout.positions_cylindrical(100.0, 400.0)["T1"][2] == pytest.approx(40.0)
 
 
 def test_positions_take_face_then_angle():
@@ -139,30 +139,30 @@ def test_positions_take_face_then_angle():
     # expected values from the frame convention in DEVELOPERS.md (y = -r sin a, z = r cos a)
     layout = Layout.from_dict(base())
     assert layout.positions_cylindrical(100.0, 90.0)["W1"][0] == pytest.approx(-5.0)
-    assert layout.positions_cylindrical(100.0, 90.0)["C1"] == pytest.approx((0.05, 1.0, 90.0))
-    np.testing.assert_allclose(layout.positions_machine(100.0, 90.0)["C1"], [0.05, -1.0, 0.0],
+    assert layout.positions_cylindrical(100.0, 90.0)["T1"] == pytest.approx((0.05, 1.0, 90.0))
+    np.testing.assert_allclose(layout.positions_machine(100.0, 90.0)["T1"], [0.05, -1.0, 0.0],
                                atol=1e-12)
-    np.testing.assert_allclose(layout.positions_world(100.0, 90.0)["C1"], [100.05, -1.0, 0.0],
+    np.testing.assert_allclose(layout.positions_world(100.0, 90.0)["T1"], [100.05, -1.0, 0.0],
                                atol=1e-12)
 
 
 def test_world_frame_and_wall_electrodes():
     layout = Layout.from_dict(base())
     world = layout.positions_world(face_chainage_m=100.0, cutterhead_deg=0.0)
-    np.testing.assert_allclose(world["C1"], [100.05, 0.0, 1.0], atol=1e-12)
+    np.testing.assert_allclose(world["T1"], [100.05, 0.0, 1.0], atol=1e-12)
     np.testing.assert_allclose(world["W1"], [95.0, 0.0, -3.2], atol=1e-12)  # 180 deg: invert
     later = layout.positions_world(face_chainage_m=110.0)
     np.testing.assert_allclose(later["W1"], world["W1"])  # fixed in the ground
     assert layout.positions_machine(face_chainage_m=110.0)["W1"][0] == pytest.approx(-15.0)
-    assert world["R1"] is None and world["M0"] is None
+    assert world["R1"] is None and world["BODY"] is None
     with pytest.raises(ValueError, match="face_chainage_m"):
         layout.positions_machine()
 
 
 def test_electrode_models():
     layout = Layout.from_dict(base())
-    assert layout.electrode("M0").on_steel
-    assert not layout.electrode("C1").on_steel
+    assert layout.electrode("BODY").on_steel
+    assert not layout.electrode("T1").on_steel
     assert layout.electrode("R1").at_infinity
     assert layout.electrode("W1").fixed_in_ground
 
@@ -175,5 +175,5 @@ def test_generators():
     q = layout.measurements
     # three insulated electrodes: 3 pole-pole pairs and 3 machine poles
     assert len(q) == 6
-    assert Measurement("M0", "R1", "W1", "R1") in q
+    assert Measurement("BODY", "R1", "W1", "R1") in q
     assert all(m.b == "R1" and m.n == "R1" for m in q)

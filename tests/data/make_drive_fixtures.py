@@ -36,7 +36,7 @@ def fixture_layout() -> Layout:
     els += [{"label": f"S{i}", "kind": "shield", "axial_m": x, "radius_m": 3.05,
              "angle_deg": a} for i, (x, a) in enumerate([(-2.0, 0.0), (-5.0, 120.0),
                                                          (-8.0, 240.0)])]
-    els += [{"label": "M0", "kind": "machine"}, {"label": "R", "kind": "remote"}]
+    els += [{"label": "BODY", "kind": "machine"}, {"label": "R", "kind": "remote"}]
     return Layout.from_dict({
         "name": "inversion test layout",
         "machine": {"diameter_m": D, "shield_length_m": 9.0, "cutterhead_thickness_m": 1.0},

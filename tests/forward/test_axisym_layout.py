@@ -25,10 +25,10 @@ def _layout(model_body=True, model_cavity=True):
         "tunnel": {"cover_m": "inf", "lining_resistivity_ohmm": 300.0,
                    "model_cavity": model_cavity, "length_m": 30.0},
         "electrode": [
-            {"label": "C1", "kind": "cutterhead", "axial_m": 0.2, "radius_m": 0.5},
-            {"label": "C2", "kind": "cutterhead", "axial_m": 0.2, "radius_m": 1.5,
+            {"label": "T1", "kind": "cutterhead", "axial_m": 0.2, "radius_m": 0.5},
+            {"label": "T2", "kind": "cutterhead", "axial_m": 0.2, "radius_m": 1.5,
              "angle_deg": 90.0},
-            {"label": "C3", "kind": "cutterhead", "axial_m": 0.2, "radius_m": 2.5,
+            {"label": "T3", "kind": "cutterhead", "axial_m": 0.2, "radius_m": 2.5,
              "angle_deg": 180.0},
             {"label": "S1", "kind": "shield", "axial_m": -2.0, "radius_m": 3.2},
             {"label": "SB", "kind": "shield", "axial_m": -4.0, "radius_m": 3.0,
@@ -36,8 +36,8 @@ def _layout(model_body=True, model_cavity=True):
             {"label": "R", "kind": "remote"},
         ],
         "protocol": {"generate": ["pole-pole"], "remote": "R"},
-        "measurement": [{"a": "SB", "b": "R", "m": "C1", "n": "R"},
-                        {"a": "C1", "b": "C2", "m": "C3", "n": "S1"}],
+        "measurement": [{"a": "SB", "b": "R", "m": "T1", "n": "R"},
+                        {"a": "T1", "b": "T2", "m": "T3", "n": "S1"}],
     }, source="<test layout>")
 
 
@@ -47,7 +47,7 @@ def test_from_layout_matches_closed_form_without_body():
     are honoured."""
     lay = _layout(model_body=False, model_cavity=False)
     lay = Layout.from_dict({**lay.to_dict(), "measurement": [
-        {"a": "C1", "b": "C2", "m": "C3", "n": "S1"}]}, source="<test>")
+        {"a": "T1", "b": "T2", "m": "T3", "n": "S1"}]}, source="<test>")
     model = AxisymLayoutSolver(lay, settings=COARSE)
     sc = Scenario.homogeneous(40.0)
     for ch in (0.0, 37.0):
@@ -121,17 +121,17 @@ def test_registry_model_takes_label_tuples_and_reciprocals():
     """``AxisymModel.response(..., measurements)`` gives the closed-form numbers for (a, b, m, n)
     tuples (empty for a pole) and their reciprocals (no body, no cavity)."""
     lay = _layout(model_body=False, model_cavity=False)
-    quads = [("C1", "C2", "C3", "S1"), ("C1", "", "C3", ""), ("C3", "S1", "C1", "C2")]
+    quads = [("T1", "T2", "T3", "S1"), ("T1", "", "T3", ""), ("T3", "S1", "T1", "T2")]
     sc = Scenario.homogeneous(40.0)
     r = AxisymModel(lay).response(sc, 100.0, 0.0, quads)
     lay2 = Layout.from_dict({**lay.to_dict(), "protocol": {}, "measurement": [
-        {"a": "C1", "b": "C2", "m": "C3", "n": "S1"}, {"a": "C1", "m": "C3"},
-        {"a": "C3", "b": "S1", "m": "C1", "n": "C2"}]}, source="<t>")
+        {"a": "T1", "b": "T2", "m": "T3", "n": "S1"}, {"a": "T1", "m": "T3"},
+        {"a": "T3", "b": "S1", "m": "T1", "n": "T2"}]}, source="<t>")
     ref = layout_response(lay2, sc, 100.0)
     np.testing.assert_allclose(r, ref, rtol=5e-3)
     np.testing.assert_allclose(r[2], r[0], rtol=1e-6)       # reciprocity
     with pytest.raises(ValueError, match="unknown electrode 'X9'"):
-        AxisymModel(lay).response(sc, 100.0, 0.0, [("C1", None, "X9", None)])
+        AxisymModel(lay).response(sc, 100.0, 0.0, [("T1", None, "X9", None)])
 
 
 @pytest.mark.parametrize("contact_ahead_m", [0.37, 2.9, 13.3])
@@ -143,7 +143,7 @@ def test_scenario_contact_fitted_to_mesh_line(contact_ahead_m):
     lay = _layout(model_body=False, model_cavity=False)
     # pole-pole readings (potentials); a dipole-dipole differences them 10x down
     lay = Layout.from_dict({**lay.to_dict(), "measurement": [
-        {"a": "C1", "b": "R", "m": "C3", "n": "R"}]}, source="<test>")
+        {"a": "T1", "b": "R", "m": "T3", "n": "R"}]}, source="<test>")
     close = contact_ahead_m < 1.0
     settings = AxisymSettings(near_field_m=0.1, harmonic_factor=5.0) if close else None
     model = AxisymLayoutSolver(lay, settings=settings)

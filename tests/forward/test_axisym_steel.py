@@ -13,9 +13,9 @@ from tbminv.forward.axisym.solver import AxisymSolver
 
 GEO = CylGeometry(machine_radius_m=3.1, shield_length_m=9.5, tunnel_length_m=30.0)
 MESH = CylMeshSettings(h_fine_m=0.05, growth=1.2)
-ELS = [AxElectrode("C1", 0.05, 0.4, 0.0), AxElectrode("C4", 0.05, 2.8, 135.0),
+ELS = [AxElectrode("T1", 0.05, 0.4, 0.0), AxElectrode("T4", 0.05, 2.8, 135.0),
        AxElectrode("S1", -1.5, 3.2, 0.0), AxElectrode("W1", -15.0, 3.3, 0.0),
-       AxElectrode("M0", on_steel=True), AxElectrode("F", 150.0, 0.0, 0.0)]
+       AxElectrode("BODY", on_steel=True), AxElectrode("F", 150.0, 0.0, 0.0)]
 LABELS = [e.label for e in ELS]
 
 
@@ -57,7 +57,7 @@ def test_current_into_machine_far_field(perfect):
     """Current into the whole body: far away the body is a point source of the same current
     (Gauss's law), V = rho I / (4 pi R) at 150 m from the body centre: within 0.5 %."""
     g = perfect
-    v = g[LABELS.index("F"), LABELS.index("M0")]
+    v = g[LABELS.index("F"), LABELS.index("BODY")]
     ref = 100.0 / (4 * math.pi * (150.0 + 0.5 * 9.5))
     assert v == pytest.approx(ref, rel=5e-3)
 
@@ -69,8 +69,8 @@ def test_insulated_face_electrode_near_machine_potential(perfect):
     3rd ed., sec. 1.9, from memory). The 2 % bound is measured with this project's model
     (this test and tests/forward/test_fem3d_model.py)."""
     g = perfect
-    vm = g[LABELS.index("M0"), LABELS.index("M0")]
-    vc = g[LABELS.index("C1"), LABELS.index("M0")]
+    vm = g[LABELS.index("BODY"), LABELS.index("BODY")]
+    vc = g[LABELS.index("T1"), LABELS.index("BODY")]
     assert vc == pytest.approx(vm, rel=2e-2)
 
 

@@ -27,19 +27,19 @@ def _layout(body=True, cavity=True, cover=math.inf, length=20.0, steel=True) -> 
                     "model_body": body},
         "tunnel": {"cover_m": cover, "model_cavity": cavity, "length_m": length},
         "electrode": [
-            {"label": "C1", "kind": "cutterhead", "axial_m": 0.05, "radius_m": 1.0,
+            {"label": "T1", "kind": "cutterhead", "axial_m": 0.05, "radius_m": 1.0,
              "angle_deg": 30},
-            {"label": "C0", "kind": "cutterhead", "axial_m": 0.0, "radius_m": 2.0,
+            {"label": "T0", "kind": "cutterhead", "axial_m": 0.0, "radius_m": 2.0,
              "angle_deg": 0},
             {"label": "S1", "kind": "shield", "axial_m": -3.0, "radius_m": 3.0,
              "angle_deg": 90},
             {"label": "SB", "kind": "shield", "axial_m": -6.0, "radius_m": 3.0,
              "angle_deg": 180, "insulated": False},
-            {"label": "M0", "kind": "machine"},
+            {"label": "BODY", "kind": "machine"},
             {"label": "W1", "kind": "wall", "chainage_m": 90.0, "radius_m": 3.2,
              "angle_deg": 270},
             {"label": "R1", "kind": "remote"}],
-        "measurement": [{"a": "C1", "b": "R1", "m": "S1", "n": "R1"}]}
+        "measurement": [{"a": "T1", "b": "R1", "m": "S1", "n": "R1"}]}
     if not steel:
         d["electrode"] = [e for e in d["electrode"] if e["kind"] != "machine"]
     return Layout.from_dict(d, source="<mesh test>")
@@ -79,22 +79,22 @@ def test_electrodes_are_nodes(full_mesh):
     for label, p in pts.items():
         if p is None:
             continue
-        if label != "M0":  # the steel node keeps off the plane at -5 m
+        if label != "BODY":  # the steel node keeps off the plane at -5 m
             np.testing.assert_allclose(xyz[tm.electrode_nodes[label]], p, atol=1e-9)
-    # insulated electrodes sit in the ground: C0 (given behind the face) moved ahead
-    assert pts["C0"][0] == pytest.approx(COARSE.clearance_m)
+    # insulated electrodes sit in the ground: T0 (given behind the face) moved ahead
+    assert pts["T0"][0] == pytest.approx(COARSE.clearance_m)
     assert math.hypot(*pts["S1"][1:]) == pytest.approx(3.0 + COARSE.clearance_m)
     mk = np.asarray(tm.mesh.cellMarkers())
     ground = tm.region_mask("ground")
-    for label in ("C1", "C0", "S1", "W1"):
+    for label in ("T1", "T0", "S1", "W1"):
         cells = _cells_at_node(tm, tm.electrode_nodes[label])
         assert ground[cells].all(), label
     # bare and machine electrodes are inside the steel
     steel_mask = tm.steel_mask()
-    for label in ("SB", "M0"):
+    for label in ("SB", "BODY"):
         cells = _cells_at_node(tm, tm.electrode_nodes[label])
         assert steel_mask[cells].all(), label
-    assert tm.steel_node == tm.electrode_nodes["M0"]
+    assert tm.steel_node == tm.electrode_nodes["BODY"]
     assert mk.size == tm.mesh.cellCount()
 
 

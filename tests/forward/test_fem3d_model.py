@@ -35,9 +35,9 @@ SMALL = MeshSettings(box_m=150.0, n_segments=12, face_size_m=0.8, growth=1.6,
 def make_layout(body: bool = False, cavity: bool = False, cover: float = math.inf,
                 extra: list | None = None) -> Layout:
     els = [
-        {"label": "C1", "kind": "cutterhead", "axial_m": 0.05, "radius_m": 0.5, "angle_deg": 0},
-        {"label": "C2", "kind": "cutterhead", "axial_m": 0.05, "radius_m": 2.0, "angle_deg": 90},
-        {"label": "C3", "kind": "cutterhead", "axial_m": 0.05, "radius_m": 2.8,
+        {"label": "T1", "kind": "cutterhead", "axial_m": 0.05, "radius_m": 0.5, "angle_deg": 0},
+        {"label": "T2", "kind": "cutterhead", "axial_m": 0.05, "radius_m": 2.0, "angle_deg": 90},
+        {"label": "T3", "kind": "cutterhead", "axial_m": 0.05, "radius_m": 2.8,
          "angle_deg": 200},
         {"label": "S1", "kind": "shield", "axial_m": -2.0, "radius_m": 3.1, "angle_deg": 0},
         {"label": "S2", "kind": "shield", "axial_m": -7.0, "radius_m": 3.1, "angle_deg": 180},
@@ -49,11 +49,11 @@ def make_layout(body: bool = False, cavity: bool = False, cover: float = math.in
                      "model_body": body},
          "tunnel": {"cover_m": cover, "model_cavity": cavity, "length_m": 30.0},
          "electrode": els,
-         "measurement": [{"a": "C1", "b": "R1", "m": "C2", "n": "R1"}]}
+         "measurement": [{"a": "T1", "b": "R1", "m": "T2", "n": "R1"}]}
     return Layout.from_dict(d, source="<test layout>")
 
 
-LABELS = ["C1", "C2", "C3", "S1", "S2", "W1"]
+LABELS = ["T1", "T2", "T3", "S1", "S2", "W1"]
 # every quadrupole of distinct electrodes (A<B, M<N, AB != MN), plus pole readings
 QUADS = [(a, b, m, n) for a, b, m, n in itertools.permutations(LABELS, 4) if a < b and m < n]
 QUADS += [(a, "R1", m, "R1") for a, m in itertools.permutations(LABELS, 2)]
@@ -172,7 +172,7 @@ def test_plane_contact_image_method_far(ratio, ahead_d):
     _contact_case(ratio, ahead_d)
 
 
-STEEL_EXTRA = [{"label": "M0", "kind": "machine"},
+STEEL_EXTRA = [{"label": "BODY", "kind": "machine"},
                {"label": "SB", "kind": "shield", "axial_m": -5.0, "radius_m": 3.0,
                 "angle_deg": 90, "insulated": False},
                {"label": "R2", "kind": "remote", "axial_m": -60.0, "radius_m": 0.0,
@@ -184,18 +184,18 @@ def test_reciprocity_and_steel_with_body():
     e.g. Parasnis 1988, Geophysical Prospecting 36:225-233; an invariant of the physics), and a
     current into the kind-machine node equals one into any other steel node (bare SB)."""
     lay = make_layout(body=True, cavity=True, extra=STEEL_EXTRA)
-    quads = [("C1", "S2", "C2", "W1"), ("C1", "R2", "S1", "R1"), ("C3", None, "W1", None),
-             ("M0", "R2", "C1", "R1"), ("S2", "R2", "W1", "R1")]
+    quads = [("T1", "S2", "T2", "W1"), ("T1", "R2", "S1", "R1"), ("T3", None, "W1", None),
+             ("BODY", "R2", "T1", "R1"), ("S2", "R2", "W1", "R1")]
     quads += [(m, n, a, b) for a, b, m, n in quads]
-    quads += [("SB", "R2", "C1", "R1"), ("C1", "R2", "M0", "R1"), ("C1", "R2", "SB", "R1")]
+    quads += [("SB", "R2", "T1", "R1"), ("T1", "R2", "BODY", "R1"), ("T1", "R2", "SB", "R1")]
     st = Fem3DSettings(mesh=SMALL, use_reciprocity=False)  # every A/B pair really solved
     r = Forward3D(lay, st).run(Scenario.homogeneous(100.0), FACE, 0.0, quads).r_ohm
     n = 5
     assert np.all(np.abs(r[:n]) > 0)
     np.testing.assert_allclose(r[n:2 * n], r[:n], rtol=5e-3)
-    # current into M0 (axis, mid-shield) == current into SB (on the skin at -5 m)
+    # current into BODY (axis, mid-shield) == current into SB (on the skin at -5 m)
     np.testing.assert_allclose(r[3], r[10], rtol=1e-4)
-    # the machine reads one potential: M0 and SB as potential electrodes agree
+    # the machine reads one potential: BODY and SB as potential electrodes agree
     np.testing.assert_allclose(r[11], r[12], rtol=1e-4)
 
 
@@ -206,7 +206,7 @@ def test_machine_resistivity_convergence():
     the 0.1 % figure is measured with this project's model (this test)."""
     lay = make_layout(body=True, cavity=True, extra=STEEL_EXTRA)
     assert lay.machine.body_resistivity_ohmm == 1e-5
-    quads = [("C1", "S2", "C2", "W1"), ("C1", "R2", "S1", "R1"), ("M0", "R2", "C1", "R1"),
+    quads = [("T1", "S2", "T2", "W1"), ("T1", "R2", "S1", "R1"), ("BODY", "R2", "T1", "R1"),
              ("S1", "R2", "W1", "R1")]
     fw = Forward3D(lay, Fem3DSettings(p2=False, mesh=SMALL))
     tm = fw.mesh(None, FACE)
@@ -233,8 +233,8 @@ def test_geometric_factors_homogeneous(tmp_path, monkeypatch):
     factors from a 100 ohm-m run; factors come from the cache on the second call."""
     monkeypatch.setenv("TBMINV_CACHE_DIR", str(tmp_path))
     lay = make_layout(body=True, cavity=False, extra=STEEL_EXTRA)
-    quads = [("C1", "S2", "C2", "W1"), ("C1", "R2", "S1", "R1"), ("M0", "R2", "C1", "R1"),
-             ("S1", "R2", "W1", "R1"), ("C1", None, "C3", None)]
+    quads = [("T1", "S2", "T2", "W1"), ("T1", "R2", "S1", "R1"), ("BODY", "R2", "T1", "R1"),
+             ("S1", "R2", "W1", "R1"), ("T1", None, "T3", None)]
     st = Fem3DSettings(p2=False, mesh=SMALL)
     k = geometric_factors(lay, quads, FACE, settings=st)
     assert np.all(np.isfinite(k))

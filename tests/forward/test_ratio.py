@@ -25,9 +25,9 @@ D = 6.0
 
 def _point_layout(cover_m: float) -> Layout:
     """No machine, no bore: electrodes are points in the ground (closed forms apply)."""
-    els = [{"label": "C1", "kind": "cutterhead", "axial_m": 0.05, "radius_m": 0.5,
+    els = [{"label": "T1", "kind": "cutterhead", "axial_m": 0.05, "radius_m": 0.5,
             "angle_deg": 0},
-           {"label": "C2", "kind": "cutterhead", "axial_m": 0.05, "radius_m": 2.0,
+           {"label": "T2", "kind": "cutterhead", "axial_m": 0.05, "radius_m": 2.0,
             "angle_deg": 90},
            {"label": "S1", "kind": "shield", "axial_m": -3.0, "radius_m": 3.1, "angle_deg": 0},
            {"label": "S2", "kind": "shield", "axial_m": -8.0, "radius_m": 3.1,
@@ -36,9 +36,9 @@ def _point_layout(cover_m: float) -> Layout:
             "angle_deg": 0},
            {"label": "R1", "kind": "remote"}]
     meas = [{"a": a, "b": "R1", "m": m, "n": "R1"}
-            for a in ("C1", "S1") for m in ("C2", "S2", "W1")]
-    meas += [{"a": "C1", "b": "S2", "m": "C2", "n": "S1"},
-             {"a": "S1", "b": "W1", "m": "C1", "n": "S2"}]
+            for a in ("T1", "S1") for m in ("T2", "S2", "W1")]
+    meas += [{"a": "T1", "b": "S2", "m": "T2", "n": "S1"},
+             {"a": "S1", "b": "W1", "m": "T1", "n": "S2"}]
     return Layout.from_dict({
         "machine": {"diameter_m": D, "shield_length_m": 10.0, "cutterhead_thickness_m": 1.0,
                     "model_body": False},

@@ -31,7 +31,7 @@ OPTIONS = {"analytic": {}, "axisym": {"settings": COARSE},
            "3d": {"settings": SMALL3D}}
 
 
-ELECTRODES = (("C1", "cutterhead", 0.05, 0.5, 0.0), ("C2", "cutterhead", 0.05, 2.0, 180.0),
+ELECTRODES = (("T1", "cutterhead", 0.05, 0.5, 0.0), ("T2", "cutterhead", 0.05, 2.0, 180.0),
               ("S1", "shield", -3.0, 3.1, 0.0))
 """label, kind, axial_m, radius_m, angle_deg; plus the remote R1 at infinity."""
 
@@ -40,7 +40,7 @@ def _layout() -> Layout:
     """No machine, no bore, full space: every model can answer it."""
     els = [{"label": lab, "kind": kind, "axial_m": x, "radius_m": r, "angle_deg": a}
            for lab, kind, x, r, a in ELECTRODES] + [{"label": "R1", "kind": "remote"}]
-    quads = [("C1", "R1", "C2", "R1"), ("C1", "S1", "C2", "")]
+    quads = [("T1", "R1", "T2", "R1"), ("T1", "S1", "T2", "")]
     return Layout.from_dict({
         "machine": {"diameter_m": 6.0, "shield_length_m": 10.0, "model_body": False},
         "tunnel": {"model_cavity": False}, "electrode": els,
@@ -55,7 +55,7 @@ def _check_protocol(name: str, rtol: float = 1e-6) -> None:
     r = model.response(sc, 100.0)
     assert r.shape == (2,) and np.all(np.isfinite(r)) and np.all(r != 0)
     # labels, Measurement objects and reciprocals in any order give the same numbers
-    quads = [("C2", None, "C1", "S1"), lay.measurements[0], ("C1", "", "C2", "")]
+    quads = [("T2", None, "T1", "S1"), lay.measurements[0], ("T1", "", "T2", "")]
     got = model.response(sc, 100.0, 0.0, quads)
     np.testing.assert_allclose(got, [r[1], r[0], r[0]], rtol=rtol)   # R1 is at infinity
     assert isinstance(quads[1], Measurement)

@@ -208,7 +208,7 @@ def test_readings_outside_the_protocol_fail_before_any_inversion(symmetric_dipol
     d = symmetric_dipole_drive
     lay = load_layout(d.layout)
     only = Layout.from_dict({**lay.to_dict(), "protocol": {},
-                             "measurement": [{"a": "S1", "b": "S2", "m": "C1", "n": "C2"}]},
+                             "measurement": [{"a": "S1", "b": "S2", "m": "T1", "n": "T2"}]},
                             source="<one quadrupole nobody measured>")
     settings, qc = load_settings(d.settings)
     with pytest.raises(InversionError, match="none of its .* valid readings is a quadrupole"):

@@ -262,7 +262,7 @@ def test_run_check_nothing_usable(tmp_path):
 def test_describe_says_what_to_set(tmp_path):
     path = tmp_path / "log.csv"
     path.write_text("advance,face_chainage_m,a,b,m,n,current_a,voltage_v\n"
-                    "1,1200.0,C1,,C2,,0.5,0.1\n")
+                    "1,1200.0,T1,,T2,,0.5,0.1\n")
     res = run_check(path, LAYOUT, tmp_path / "out", sign_check=False)  # no pairs, no fallback
     text = "\n".join(res.describe())
     assert not res.usable and "fallback_a_ohm" in text and "quarantine" in text

@@ -110,9 +110,9 @@ def test_valid_log_reads_completely(tmp_path):
     ({"current_a": "-0.2"}, "zero or negative current"),
     ({"m": "C99"}, "unknown electrode label"),
     ({"b": "nowhere"}, "unknown electrode label"),
-    ({"a": "C1", "m": "C1"}, "A = M"),
-    ({"a": "C1", "b": "C1"}, "A = B"),
-    ({"m": "C2", "n": "C2"}, "M = N"),
+    ({"a": "T1", "m": "T1"}, "A = M"),
+    ({"a": "T1", "b": "T1"}, "A = B"),
+    ({"m": "T2", "n": "T2"}, "M = N"),
     ({"b": "R2", "n": "R2"}, "B = N"),  # R2 is a remote at a position: not shared
     ({"cutterhead_deg": "360"}, "cutterhead angle outside [0, 360)"),
     ({"cutterhead_deg": "-0.5"}, "cutterhead angle outside [0, 360)"),
@@ -175,7 +175,7 @@ def test_wrong_field_count_and_blank_lines(tmp_path):
     text = path.read_text().splitlines()
     text.insert(2, "")                       # blank line (line 3): skipped, counted
     text[4] = text[4] + ",extra"             # one field too many (line 5)
-    text.append("1,1200.9,C1")               # too few (line 8)
+    text.append("1,1200.9,T1")               # too few (line 8)
     path.write_text("\n".join(text) + "\n")
     r = read_readings(path, LAYOUT)
     assert r.summary.blank_lines == 1
@@ -201,11 +201,11 @@ def test_bad_utf8_line_quarantined(tmp_path):
 @pytest.mark.parametrize("content, words", [
     (b"", "no header"),
     (b"\n1,2,3\n", "no header"),
-    (b"advance;face_chainage_m;a;b;m;n;current_a;voltage_v\n1;1200;C1;;C2;;0.5;0.1\n"
+    (b"advance;face_chainage_m;a;b;m;n;current_a;voltage_v\n1;1200;T1;;T2;;0.5;0.1\n"
 , "semicolon"),
     (b"advance\tface_chainage_m\ta\tb\tm\tn\tcurrent_a\tvoltage_v\n", "tab"),
-    (b"advance,face_chainage_m,a,b,m,n,current_a\n1,1200,C1,,C2,,0.5\n", "voltage_v"),
-    (b"1,1200,C1,,C2,,0.5,0.1\n2,1201,C1,,C2,,0.5,0.1\n", "no header line"),
+    (b"advance,face_chainage_m,a,b,m,n,current_a\n1,1200,T1,,T2,,0.5\n", "voltage_v"),
+    (b"1,1200,T1,,T2,,0.5,0.1\n2,1201,T1,,T2,,0.5,0.1\n", "no header line"),
     ("advance,face_chainage_m,a,b,m,n,current_a,voltage_v\n".encode("utf-16"), "UTF-16"),
     ("advance,face_chainage_m,a,b,m,n,current_a,voltage_v,B\u00e9\n".encode("latin-1"), "UTF-8"),
     (b"advance,face_chainage_m,a,b,m,n,current_a,voltage_v,a\n", "named twice"),
@@ -342,15 +342,15 @@ def test_advance_data_weights_readings_by_their_error():
     # inverse-variance weighting of repeated readings: common practice, no source; the error
     # of one reading is the model's (pair-difference) error / sqrt(2)
     quads = [q.labels() for q in LAYOUT.measurements]
-    i = quads.index(("C1", "R1", "C2", "R1"))        # R1: remote at infinity (a pole)
-    j = quads.index(("M0", "R2", "C1", "R1"))
+    i = quads.index(("T1", "R1", "T2", "R1"))        # R1: remote at infinity (a pole)
+    j = quads.index(("BODY", "R2", "T1", "R1"))
     rows = [  # advance, a, b, m, n, r_ohm, err_ohm, valid
-        (1, "C1", None, "C2", None, 2.0, 0.1, True),
-        (1, "C2", "R1", "C1", "R1", 4.0, 0.2, True),    # its reciprocal, R1 written out
-        (1, "C1", None, "C2", None, 99.0, 0.1, False),  # flagged: left out
-        (1, "M0", "R2", "C1", None, 5.0, np.nan, True),  # no error model: left out
+        (1, "T1", None, "T2", None, 2.0, 0.1, True),
+        (1, "T2", "R1", "T1", "R1", 4.0, 0.2, True),    # its reciprocal, R1 written out
+        (1, "T1", None, "T2", None, 99.0, 0.1, False),  # flagged: left out
+        (1, "BODY", "R2", "T1", None, 5.0, np.nan, True),  # no error model: left out
         (1, "W1", "W2", "W3", "W4", 1.0, 0.1, True),    # not in the protocol: left out
-        (2, "M0", "R2", "C1", None, 3.0, 0.3, True),
+        (2, "BODY", "R2", "T1", None, 3.0, 0.3, True),
     ]
     t = pd.DataFrame(rows, columns=["advance", "a", "b", "m", "n", "r_ohm", "err_ohm", "valid"])
     t["face_chainage_m"] = [10.0, 10.0, 10.0, 10.0, 10.0, 11.5]
@@ -450,17 +450,17 @@ def test_corruption_never_loses_good_rows(tmp_path, case):
 def test_quoted_fields_and_no_layout(tmp_path):
     path = tmp_path / "q.csv"
     path.write_text('advance,face_chainage_m,a,b,m,n,current_a,voltage_v,crew_note\n'
-                    '1,1200.0,"C1",,"C2",,0.5,0.1,"cutter change, ring 41"\n'
-                    '1,1200.1,C1,,C3,,0.5,0.2,plain\n'
-                    '1,1200.2,C1,,C3,,0.5,0.3,"unbalanced, quote\n')
+                    '1,1200.0,"T1",,"T2",,0.5,0.1,"cutter change, ring 41"\n'
+                    '1,1200.1,T1,,T3,,0.5,0.2,plain\n'
+                    '1,1200.2,T1,,T3,,0.5,0.3,"unbalanced, quote\n')
     r = read_readings(path, LAYOUT)
     assert r.table["line"].tolist() == [2, 3]
     assert r.table["crew_note"].tolist() == ["cutter change, ring 41", "plain"]
-    assert str(r.table["m"].iloc[0]) == "C2"
+    assert str(r.table["m"].iloc[0]) == "T2"
     assert quarantine_reasons(r) == {4: {"bad quoting"}}
     free = read_readings(path)  # no layout: labels not checked, categories from the log
-    assert free.summary.rows_kept == 2 and list(free.table["a"].cat.categories) == ["C1", "C2",
-                                                                                      "C3"]
+    assert free.summary.rows_kept == 2 and list(free.table["a"].cat.categories) == ["T1", "T2",
+                                                                                      "T3"]
 
 
 def test_summary_counts_per_reason(tmp_path):
@@ -482,8 +482,8 @@ def test_summary_counts_per_reason(tmp_path):
 
 def test_parquet_nulls_and_nan(tmp_path):
     frame = pd.DataFrame({"advance": [1, 1, 1], "face_chainage_m": [1200.0, 1200.1, 1200.2],
-                          "a": ["C1", "C1", "C1"], "b": [None, None, None],
-                          "m": ["C2", "C3", "C4"], "n": [None, None, None],
+                          "a": ["T1", "T1", "T1"], "b": [None, None, None],
+                          "m": ["T2", "T3", "T4"], "n": [None, None, None],
                           "current_a": [0.5, 0.5, 0.5], "voltage_v": [0.1, None, float("nan")],
                           "stack_n": [4, None, 4]})
     path = tmp_path / "log.parquet"

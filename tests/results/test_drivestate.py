@@ -17,7 +17,7 @@ from tbminv.results.drivestate import add_history, read_history, repeated_advanc
 from tbminv.results.store import append_shift, open_section
 from tests.helpers import assert_cf_compliant, make_section
 
-LABELS = ("C0/-/C1/-", "C1/-/C0/-", "S0/-/C2/-")
+LABELS = ("T0/-/T1/-", "T1/-/T0/-", "S0/-/T2/-")
 
 
 def _history(advances, seed: int, labels=LABELS, n_param: int = 40) -> DriveHistory:
@@ -62,7 +62,7 @@ def test_state_round_trips_through_two_shifts_exactly(tmp_path):
 
 def test_contact_columns_follow_labels_and_tail_keeps_the_latest():
     h = _history(range(10), 3)
-    r, e = h.contact_columns([LABELS[2], "M0/-/C9/-", LABELS[0]])
+    r, e = h.contact_columns([LABELS[2], "BODY/-/C9/-", LABELS[0]])
     np.testing.assert_array_equal(r[:, 0], h.contact_r_ohm[:, 2])
     assert np.all(np.isnan(r[:, 1]) & np.isnan(e[:, 1]))      # a reading the store lacks
     np.testing.assert_array_equal(e[:, 2], h.contact_rel_error[:, 0])

@@ -267,7 +267,7 @@ def test_scale_layout_keeps_skin_offsets():
     assert big.machine.shield_length_m == pytest.approx(19.0)
     s1 = big.electrode("S1")
     assert s1.radius_m == pytest.approx(6.2 + 0.05) and s1.axial_m == pytest.approx(-3.0)
-    assert big.electrode("C1").radius_m == pytest.approx(0.8)
+    assert big.electrode("T1").radius_m == pytest.approx(0.8)
     fixed = scale_layout(layout, 12.4, length="fixed")
     assert fixed.machine.shield_length_m == pytest.approx(9.5)
 
@@ -318,7 +318,7 @@ def test_cli_single_layout_writes_dataset_and_figure(tmp_path, capsys):
     ds = xr.load_dataset(tmp_path / "out" / "reach.nc")
     assert ds.relative_response.dims == ("measurement", "distance_ahead")
     assert ds.detectable_ahead_m.dims == ("measurement",)
-    assert list(ds.a.values) == ["M0"] * 5 + ["C1"] and list(ds.m.values)[:2] == ["C1", "C4"]
+    assert list(ds.a.values) == ["BODY"] * 5 + ["T1"] and list(ds.m.values)[:2] == ["T1", "T4"]
     assert ds.reach_m.dims == () and float(ds.reach_m) > 0
     assert ds.reach_per_reading_m.dims == () and float(ds.reach_per_reading_m) > 0
     assert "unknown" in ds.reach_m.attrs["long_name"]

@@ -60,7 +60,7 @@ def test_demo_layout_sees_strong_contrast_two_diameters_ahead():
     assert float(ds.reach_m) >= 2.0 * diam
     assert float(ds.reach_per_reading_m) >= 2.0 * diam
     # the machine-pole readings (current into the steel) are among those that see it
-    mp = (ds.a.values == "M0") & (ds.m.values == "C1")
+    mp = (ds.a.values == "BODY") & (ds.m.values == "T1")
     assert float(ds.detectable_ahead_m.values[mp][0]) >= 2.0 * diam
 
 

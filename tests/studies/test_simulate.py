@@ -18,13 +18,13 @@ def _layout(body: bool = False) -> Layout:
                     "model_body": body},
         "tunnel": {"model_cavity": False},
         "electrode": [
-            {"label": "C1", "kind": "cutterhead", "axial_m": 0.05, "radius_m": 0.5},
-            {"label": "C2", "kind": "cutterhead", "axial_m": 0.05, "radius_m": 2.0,
+            {"label": "T1", "kind": "cutterhead", "axial_m": 0.05, "radius_m": 0.5},
+            {"label": "T2", "kind": "cutterhead", "axial_m": 0.05, "radius_m": 2.0,
              "angle_deg": 90},
             {"label": "S1", "kind": "shield", "axial_m": -2.0, "radius_m": 3.1},
             {"label": "R1", "kind": "remote"}],
-        "measurement": [{"a": "C1", "b": "R1", "m": "C2", "n": "R1"},
-                        {"a": "C1", "b": "S1", "m": "C2", "n": ""}]}, source="<sim test>")
+        "measurement": [{"a": "T1", "b": "R1", "m": "T2", "n": "R1"},
+                        {"a": "T1", "b": "S1", "m": "T2", "n": ""}]}, source="<sim test>")
 
 
 class PointModel:
@@ -57,8 +57,8 @@ def test_log_format_and_reciprocals():
     assert df["advance"].tolist() == [1] * 4 + [2] * 4
     first = df[df.advance == 1]
     quads = list(zip(first.a, first.b, first.m, first.n))
-    assert quads == [("C1", "R1", "C2", "R1"), ("C2", "R1", "C1", "R1"),
-                     ("C1", "S1", "C2", ""), ("C2", "", "C1", "S1")]
+    assert quads == [("T1", "R1", "T2", "R1"), ("T2", "R1", "T1", "R1"),
+                     ("T1", "S1", "T2", ""), ("T2", "", "T1", "S1")]
     # reciprocity of the model carries into the log (noise free)
     v = first.voltage_v.to_numpy()
     np.testing.assert_allclose(v[1], v[0], rtol=1e-12)

@@ -114,10 +114,10 @@ class SyntheticDrive:
         return dataclasses.replace(self, layout=layout, readings=readings, data=data, name=name)
 
 
-COMPACT_EXTRA = (("M0", "R1", "C1", "R1"), ("M0", "R1", "C4", "R1"), ("M0", "R1", "S1", "R1"),
-                 ("C1", "R1", "S1", "R1"), ("C1", "R1", "S3", "R1"), ("C1", "R1", "S5", "R1"),
-                 ("C1", "R1", "W1", "R1"), ("C1", "R1", "W3", "R1"), ("M0", "R1", "W2", "R1"),
-                 ("M0", "R1", "W4", "R1"), ("M0", "R1", "S6", "R1"))
+COMPACT_EXTRA = (("BODY", "R1", "T1", "R1"), ("BODY", "R1", "T4", "R1"), ("BODY", "R1", "S1", "R1"),
+                 ("T1", "R1", "S1", "R1"), ("T1", "R1", "S3", "R1"), ("T1", "R1", "S5", "R1"),
+                 ("T1", "R1", "W1", "R1"), ("T1", "R1", "W3", "R1"), ("BODY", "R1", "W2", "R1"),
+                 ("BODY", "R1", "W4", "R1"), ("BODY", "R1", "S6", "R1"))
 """Pole-pole readings added to the demo layout's explicit protocol by :func:`compact_layout`.
 
 The machine-pole readings against the remote at infinity are the ones the contact fit uses
