@@ -13,7 +13,7 @@ from pathlib import Path
 import tbminv
 from tbminv.ground import demo_ground_path
 from tbminv.inversion.settings import load_settings
-from tbminv.jobs import run_check, run_drive
+from tbminv.jobs import run_check, run_drive, stage_times_line
 from tbminv.layout import demo_layout_path, load_layout
 from tbminv.report import write_report
 
@@ -67,6 +67,7 @@ def run_demo(out_dir: Path, echo: Callable[[str], None] | None = None) -> int:
     ds = run_drive(result.prepared, layout, store, settings=inv_settings,
                    layout_path=demo_layout_path(), progress=True)
     echo(f"  invert: {ds.sizes['advance']} advances -> section store {store}")
+    echo(f"  invert: {stage_times_line(ds)}")
     for p in write_report(store, out / "report", qc_summary=result.summary.get("qc")):
         echo(f"  report: {p}")
     echo(tbminv.CAUTION)

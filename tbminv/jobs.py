@@ -10,6 +10,7 @@ import logging
 import math
 import os
 import shutil
+import time
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -193,6 +194,7 @@ def run_drive(readings: str | Path | pd.DataFrame | PreparedReadings, layout: La
     """
     settings = settings or InversionSettings()
     inverter = DriveInverter(layout, settings)
+    t_start = time.perf_counter()
     if isinstance(readings, PreparedReadings):
         prepared = readings
     else:
@@ -203,6 +205,7 @@ def run_drive(readings: str | Path | pd.DataFrame | PreparedReadings, layout: La
                                     out_dir=out_dir, expected_sign=homogeneous_sign(inverse_k),
                                     model_error_floor=settings.model_error_floor)
     source = prepared.source
+    t_readings = time.perf_counter() - t_start
     _check_protocol(prepared, layout)
     data = [d for d in prepared.advances if np.isfinite(d.r_ohm).sum() >= 3]
     if not data:
@@ -247,9 +250,13 @@ def run_drive(readings: str | Path | pd.DataFrame | PreparedReadings, layout: La
                      "is kept; rerun that run to resume it, or delete the folder", other)
     results = inverter.run(data, cold=cold, progress=progress, scheduler=scheduler,
                            client=client, journal=journal, history=history)
+    t0 = time.perf_counter()
     ds = build_section(results, layout_text, repr(settings.to_dict()), readings_sha)
     ds = add_history(ds, inverter.last_run)
     append_shift(store_path, ds, shift=label)
+    stages = {"readings and QC": t_readings, **inverter.stage_seconds,
+              "store": time.perf_counter() - t0}
+    ds.attrs["stage_seconds"] = json.dumps({k: round(v, 2) for k, v in stages.items()})
     if any(r.postprocess_flag & POSTPROCESS_RESAMPLING_FAILED for r in results):
         _LOG.warning("journal %s kept: an advance could not be resampled to the output grid "
                      "(its image is in the journal)", journal.folder)
@@ -342,6 +349,15 @@ def _shift_label(data: Sequence[AdvanceData]) -> str:
     return f"advances-{data[0].advance}-{data[-1].advance}"
 
 
+def stage_times_line(ds: xr.Dataset) -> str:
+    """``time by stage: ...`` of a :func:`run_drive` result (its ``stage_seconds`` attribute)."""
+    stages = json.loads(ds.attrs.get("stage_seconds", "{}"))
+    if not stages:
+        return "time by stage: not recorded"
+    parts = [f"{k} {v:.0f} s" if v >= 1 else f"{k} {v:.1f} s" for k, v in stages.items()]
+    return f"time by stage: {', '.join(parts)} (total {sum(stages.values()):.0f} s)"
+
+
 #: Exit code of ``tbminv invert`` when the images are stored but a post-processing step failed.
 EXIT_PARTIAL = 3
 
@@ -396,6 +412,7 @@ def invert_job(readings_path: str | Path, layout_path: str | Path, store_path: s
         return 0
     flagged = int((ds["fit_flag"].values != 0).sum()) if "fit_flag" in ds else 0
     echo(f"inverted {n} advances ({flagged} flagged) -> {store_path}")
+    echo(stage_times_line(ds))
     if "contact_ahead_m" in ds:
         last = ds.isel(advance=-1)
         d = float(last["contact_ahead_m"])

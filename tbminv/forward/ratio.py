@@ -46,6 +46,7 @@ import numpy as np
 from tbminv.cache import atomic_write_text, cache_dir, cache_key
 from tbminv.forward.fem3d.model import Fem3DSettings, Model3D
 from tbminv.forward.quadrupoles import Quadrupoles, as_measurements
+from tbminv.forward.surfacetable import SurfaceTableSpec, table_surface_factors
 from tbminv.ground import Scenario
 from tbminv.layout import Layout
 
@@ -235,8 +236,15 @@ def needs_correction(layout: Layout) -> bool:
 
 def surface_factors(layout: Layout, face_chainage_m: float, cutterhead_deg: float = 0.0, *,
                     rho_ohmm: float = 100.0, settings: Fem3DSettings | None = None,
-                    use_cache: bool = True) -> np.ndarray:
+                    use_cache: bool = True, method: str = "table",
+                    spec: SurfaceTableSpec | None = None) -> np.ndarray:
     """Surface factor f per protocol quadrupole (1 where no surface), dimensionless.
+
+    ``method = "table"`` (default) interpolates the factors from two 3D solves per block of
+    faces that hold every cutterhead angle node and every face node at once
+    (:mod:`tbminv.forward.surfacetable`; accuracy against ``"direct"`` in
+    ``bench/results/surface_table.json``); ``"direct"`` solves the two 3D models at this face
+    and angle.
 
     Parameters
     ----------
@@ -252,6 +260,10 @@ def surface_factors(layout: Layout, face_chainage_m: float, cutterhead_deg: floa
         Settings of the two 3D runs (default: P2, the default mesh).
     use_cache : bool
         Read and write the cache.
+    method : {"table", "direct"}
+        Interpolated from the block's table, or solved at this face and angle.
+    spec : SurfaceTableSpec, optional
+        Node spacing of the table (``method = "table"``).
 
     Returns
     -------
@@ -262,6 +274,16 @@ def surface_factors(layout: Layout, face_chainage_m: float, cutterhead_deg: floa
     n = len(layout.measurements)
     if not needs_correction(layout):
         return np.ones(n)
+    if method == "table":
+        f, bad = table_surface_factors(layout, face_chainage_m, cutterhead_deg,
+                                       rho_ohmm=float(rho_ohmm), settings=settings, spec=spec,
+                                       use_cache=use_cache)
+        if bad.any():
+            _LOG.debug("surface correction: %d readings near a null of the homogeneous "
+                       "response left uncorrected", int(bad.sum()))
+        return f
+    if method != "direct":
+        raise ValueError(f"surface_factors: method {method!r}: expected 'table' or 'direct'")
     deep = dataclasses.replace(layout, tunnel=dataclasses.replace(layout.tunnel,
                                                                   cover_m=math.inf))
     rho = float(rho_ohmm)

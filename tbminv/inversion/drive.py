@@ -49,6 +49,7 @@ from __future__ import annotations
 import dataclasses
 import logging
 import math
+import time
 from collections.abc import Callable, Sequence
 from typing import Any
 
@@ -111,6 +112,11 @@ class DriveInverter:
         self._fitter: ContactFitter | None = None
         self.grid_sha256 = grid_signature(self.grid.x_nodes, self.grid.r_nodes, self.grid.keep)
         self.last_run: DriveHistory | None = None
+        self.stage_seconds: dict[str, float] = {}
+        """Wall time of the last :meth:`run` by stage, s (surface factors, images, ...)."""
+
+    def _clock(self, stage: str, t0: float) -> None:
+        self.stage_seconds[stage] = self.stage_seconds.get(stage, 0.0) + time.perf_counter() - t0
 
     def _op_key(self, face: float, ch: float) -> tuple:
         cyl = self.layout.positions_cylindrical(face, ch)
@@ -232,6 +238,7 @@ class DriveInverter:
         data = list(data)
         self.reference_resistivity(data[0])
         if self.settings.surface_correction and needs_correction(self.layout):
+            t0 = time.perf_counter()
             try:
                 data = [self.surface_corrected(adv) for adv in
                         tqdm(data, disable=not progress, desc="surface correction (3D)",
@@ -240,6 +247,7 @@ class DriveInverter:
                 raise InversionError(f"surface correction (3D homogeneous factors) failed: "
                                      f"{exc}; set [invert] surface_correction = false to invert "
                                      "without it") from exc
+            self._clock("surface factors", t0)
         data = with_error_floor(data, self.settings.model_error_floor)
         if self.settings.contact_fit:
             try:
@@ -309,7 +317,9 @@ class DriveInverter:
             _LOG.info("continuing the drive from %d stored advances (last: advance %d at "
                       "%.2f m)", history.n_advances, int(history.advances[-1]),
                       float(history.faces_m[-1]))
+        self.stage_seconds = {}
         data = self.prepare(data, progress)
+        t0 = time.perf_counter()
         done = journal.load() if journal is not None else {}
         done = {a: img for a, img in done.items() if a in {d.advance for d in data}}
         if done:
@@ -333,11 +343,17 @@ class DriveInverter:
                              "grid settings, or a store of an older version): the first "
                              "advance starts from a homogeneous model")
             images = self._run_serial(data, cold, progress, done, keep, start)
+        self._clock("images", t0)
+        t0 = time.perf_counter()
         contacts, failed = (self._contacts(data, history) if self.settings.contact_fit
                             else ([None] * len(data), [False] * len(data)))
+        self._clock("contact fit", t0)
+        t0 = time.perf_counter()
         self.last_run = self._history(data, images)
-        return [self._advance_result(adv, img, con, fail)
-                for adv, img, con, fail in zip(data, images, contacts, failed)]
+        out = [self._advance_result(adv, img, con, fail)
+               for adv, img, con, fail in zip(data, images, contacts, failed)]
+        self._clock("resampling", t0)
+        return out
 
     def _run_serial(self, data: Sequence[AdvanceData], cold: bool, progress: bool,
                     done: dict[int, ImageResult],

@@ -53,14 +53,21 @@ def test_deep_tunnel_needs_no_correction():
 
 
 @pytest.mark.slow
-def test_surface_factor_matches_image_method():
+@pytest.mark.parametrize("method", ["direct", "table"])
+def test_surface_factor_matches_image_method(method):
+    """Direct 3D factors, and the block table interpolated between its face and angle nodes
+    (faces 501.3 and 507.9 m, angles 37 and 203 degrees are off the 2 m / 30 degree nodes),
+    against the image method (Telford et al. 1990, sec. 8.3). 1 %: the 3D model's own
+    accuracy on this coarse point layout (measured with this project's model, this file)."""
     lay = _point_layout(cover_m=6.0)
     deep = dataclasses.replace(lay, tunnel=dataclasses.replace(lay.tunnel, cover_m=math.inf))
     sc = Scenario.homogeneous(40.0)
-    want = layout_response(lay, sc, 500.0) / layout_response(deep, sc, 500.0)
-    got = surface_factors(lay, 500.0, rho_ohmm=40.0, use_cache=False)
-    assert np.all(np.abs(want - 1.0) > 0.005) and want.max() > 1.5   # the surface matters
-    np.testing.assert_allclose(got, want, rtol=0.01)
+    points = [(500.0, 0.0)] + ([(501.3, 37.0), (507.9, 203.0)] if method == "table" else [])
+    for face, angle in points:
+        want = layout_response(lay, sc, face, angle) / layout_response(deep, sc, face, angle)
+        got = surface_factors(lay, face, angle, rho_ohmm=40.0, use_cache=False, method=method)
+        assert np.all(np.abs(want - 1.0) > 0.005) and want.max() > 1.5   # the surface matters
+        np.testing.assert_allclose(got, want, rtol=0.01, err_msg=f"face {face}, angle {angle}")
 
 
 @pytest.mark.slow
@@ -88,3 +95,27 @@ def test_corrected_contact_fit_under_a_surface():
         assert c.found, (f, c)
         assert c.resistivity_beyond_ohmm < c.resistivity_around_ohmm
         assert abs(c.ahead_m - (30.0 - f)) <= 0.5 * D, (f, c.ahead_m)
+
+
+def test_table_copies_sit_where_the_electrodes_are_at_each_node():
+    """The block table's copies are the layout's electrodes at each (angle, face) node: a
+    turned copy at angle node k is the electrode at cutterhead angle k * 360 / n, a fixed copy
+    at face node j is the electrode seen from face F_0 + j * step (positions from the layout's
+    own frames, :meth:`Layout.positions_machine`)."""
+    from tbminv.forward.surfacetable import SurfaceTableSpec, _copy_label, _expanded_layout
+
+    lay = _point_layout(cover_m=6.0)
+    spec = SurfaceTableSpec()
+    turning, fixed = {"T1", "T2"}, {"W1"}
+    big = _expanded_layout(lay, spec, turning, fixed, spec.angle_nodes, spec.face_nodes)
+    f0 = 480.0
+    seen = big.positions_machine(f0, 0.0)
+    for k in range(spec.angle_nodes):
+        want = lay.positions_machine(f0, k * 360.0 / spec.angle_nodes)
+        for lab in turning:
+            got = seen[_copy_label(lab, k, 0) if k else lab]
+            np.testing.assert_allclose(got, want[lab], atol=1e-9)
+    for j in range(spec.face_nodes):
+        want = lay.positions_machine(f0 + j * spec.face_step_m, 0.0)
+        got = seen[_copy_label("W1", 0, j) if j else "W1"]
+        np.testing.assert_allclose(got, want["W1"], atol=1e-9)
