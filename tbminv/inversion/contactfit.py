@@ -62,9 +62,15 @@ Use::
 from __future__ import annotations
 
 import dataclasses
+import io
 import json
 import logging
 import math
+import os
+import pickle
+import subprocess
+import sys
+import tempfile
 from collections.abc import Sequence
 from dataclasses import dataclass
 from pathlib import Path
@@ -207,10 +213,78 @@ class ResponseTable:
                        model=str(meta["model"]))
 
 
+def _contact_scenario(rho_ref_ohmm: float, contrast: float, face_chainage_m: float,
+                      ahead_m: float) -> Scenario:
+    return Scenario(background_resistivity_ohmm=rho_ref_ohmm,
+                    contacts=(Contact(chainage_m=face_chainage_m + ahead_m,
+                                      resistivity_ohmm=rho_ref_ohmm * contrast),))
+
+
+def _table_part(recipe: tuple[str, Layout, dict[str, Any]], rho_ref_ohmm: float,
+                face_chainage_m: float, cases: list[tuple[float, float]]) -> np.ndarray:
+    """Responses of some (contrast, ahead) cases, in a worker process (model built there)."""
+    from tbminv.forward.registry import make_model
+
+    name, layout, opts = recipe
+    model = make_model(name, layout, **opts)
+    return np.array([np.asarray(model.response(_contact_scenario(rho_ref_ohmm, c, face_chainage_m,
+                                                                 d), face_chainage_m), float)
+                     for c, d in cases])
+
+
+def _table_worker_main() -> None:
+    """Entry of a table worker process: arguments pickled on stdin, ``.npy`` on stdout."""
+    recipe, rho, face, cases = pickle.loads(sys.stdin.buffer.read())
+    np.save(sys.stdout.buffer, _table_part(recipe, rho, face, cases))
+    sys.stdout.flush()
+
+
+def _table_parts_in_processes(recipe: tuple[str, Layout, dict[str, Any]], rho_ref_ohmm: float,
+                              face_chainage_m: float, parts: list[list[tuple[float, float]]]
+                              ) -> list[np.ndarray]:
+    """Run :func:`_table_part` for each part in its own fresh Python process, concurrently.
+
+    Fresh interpreters (``python -c``), not forked or multiprocessing-spawned children: a fork
+    deadlocked next to pyGIMLi's threads, and a spawned child re-runs the caller's script.
+    """
+    code = "import tbminv.inversion.contactfit as c; c._table_worker_main()"
+    procs = []
+    for part in parts:
+        err = tempfile.TemporaryFile()
+        p = subprocess.Popen([sys.executable, "-c", code], stdin=subprocess.PIPE,
+                             stdout=subprocess.PIPE, stderr=err)
+        procs.append((p, err))
+        assert p.stdin is not None
+        p.stdin.write(pickle.dumps((recipe, rho_ref_ohmm, face_chainage_m, part)))
+        p.stdin.close()
+    out = []
+    for p, err in procs:
+        assert p.stdout is not None
+        data = p.stdout.read()
+        p.wait()
+        err.seek(0)
+        tail = err.read().decode("utf-8", "replace")[-2000:]
+        err.close()
+        if p.returncode != 0:
+            raise RuntimeError(f"contact table worker failed (exit {p.returncode}): {tail}")
+        out.append(np.load(io.BytesIO(data)))
+    return out
+
+
+def table_workers() -> int:
+    """Worker processes for a new contact table: ``TBMINV_TABLE_WORKERS``, else up to 2 CPUs."""
+    env = os.environ.get("TBMINV_TABLE_WORKERS", "").strip()
+    if env:
+        return max(1, int(env))
+    return max(1, min(2, os.cpu_count() or 1))
+
+
 def build_response_table(layout: Layout, model: Any, *, rho_ref_ohmm: float,
                          settings: ContactFitSettings = ContactFitSettings(),
                          model_name: str = "", face_chainage_m: float = 0.0,
-                         cache: bool = True, progress: bool = False) -> ResponseTable:
+                         cache: bool = True, progress: bool = False,
+                         recipe: tuple[str, Layout, dict[str, Any]] | None = None
+                         ) -> ResponseTable:
     """Tabulate the forward response for contacts ahead (cached per layout and settings).
 
     Parameters
@@ -222,6 +296,10 @@ def build_response_table(layout: Layout, model: Any, *, rho_ref_ohmm: float,
         Resistivity around the machine for the table, ohm-m.
     face_chainage_m : float
         Face chainage used for the table (matters only for electrodes fixed in the ground).
+    recipe : (name, layout, options), optional
+        How to build ``model`` again (:func:`tbminv.forward.registry.make_model`): a new table
+        is then computed in :func:`table_workers` fresh Python processes, each building the
+        model once.
     """
     contrasts = np.array(sorted(set(settings.contrasts) | {1.0}), float)
     d = np.array(settings.distances_in_diameters, float) * layout.machine.diameter_m
@@ -235,15 +313,24 @@ def build_response_table(layout: Layout, model: Any, *, rho_ref_ohmm: float,
 
     r0 = np.asarray(model.response(Scenario.homogeneous(rho_ref_ohmm), face_chainage_m), float)
     r = np.empty((contrasts.size, d.size, r0.size))
-    cases = [(i, j) for i in range(contrasts.size) for j in range(d.size)]
-    for i, j in tqdm(cases, disable=not progress, desc="contact table"):
-        if contrasts[i] == 1.0:
-            r[i, j] = r0
-            continue
-        sc = Scenario(background_resistivity_ohmm=rho_ref_ohmm,
-                      contacts=(Contact(chainage_m=face_chainage_m + d[j],
-                                        resistivity_ohmm=rho_ref_ohmm * contrasts[i]),))
-        r[i, j] = np.asarray(model.response(sc, face_chainage_m), float)
+    cases = [(i, j) for i in range(contrasts.size) for j in range(d.size)
+             if contrasts[i] != 1.0]
+    for j in range(d.size):
+        r[contrasts == 1.0, j] = r0
+    workers = table_workers() if recipe is not None else 1
+    if workers > 1:
+        parts = [cases[w::workers] for w in range(workers)]
+        rows = _table_parts_in_processes(
+            recipe, rho_ref_ohmm, face_chainage_m,
+            [[(float(contrasts[i]), float(d[j])) for i, j in part] for part in parts])
+        for part, got in zip(parts, rows):
+            for (i, j), row in zip(part, got):
+                r[i, j] = row
+    else:
+        for i, j in tqdm(cases, disable=not progress, desc="contact table"):
+            r[i, j] = np.asarray(model.response(
+                _contact_scenario(rho_ref_ohmm, float(contrasts[i]), face_chainage_m,
+                                  float(d[j])), face_chainage_m), float)
     table = ResponseTable(contrasts=contrasts, distances_m=d, r_ohm=r, r0_ohm=r0,
                           rho_ref_ohmm=rho_ref_ohmm, model=model_name or type(model).__name__)
     if cache:

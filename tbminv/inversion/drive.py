@@ -149,9 +149,11 @@ class DriveInverter:
         """
         if self._fitter is None:
             sub = self._machine_only_layout()
-            model = make_model("axisym", sub, settings=getattr(self.model, "settings", None))
+            opts = {"settings": getattr(self.model, "settings", None)}
+            model = make_model("axisym", sub, **opts)
             table = build_response_table(sub, model, rho_ref_ohmm=rho_ref,
-                                         settings=self.settings.contact, model_name="axisym")
+                                         settings=self.settings.contact, model_name="axisym",
+                                         recipe=("axisym", sub, opts))
             self._fitter = ContactFitter(table, self.settings.contact,
                                          labels=self.contact_labels())
         return self._fitter
