@@ -40,9 +40,10 @@ import numpy as np
 from scipy.interpolate import CubicSpline
 
 from tbminv.cache import atomic_write_text, cache_dir, cache_key
+from tbminv.forward.copies import node_layout, node_quadrupole, roles
 from tbminv.forward.fem3d.model import Fem3DSettings, Forward3D
 from tbminv.ground import Scenario
-from tbminv.layout import Electrode, Layout
+from tbminv.layout import Layout
 
 _LOG = logging.getLogger(__name__)
 
@@ -93,63 +94,15 @@ def clear_memory_cache() -> None:
     _MEMORY.clear()
 
 
-def _turns(e: Electrode) -> bool:
-    return e.kind == "cutterhead" and e.insulated
-
-
-def _roles(layout: Layout) -> tuple[set[str], set[str]]:
-    turning = {e.label for e in layout.electrodes if _turns(e)}
-    fixed = {e.label for e in layout.electrodes if e.fixed_in_ground}
-    return turning, fixed
-
-
-def _copy_label(label: str, k: int, j: int) -> str:
-    return f"{label}~a{k}~f{j}"
-
-
-def _expanded_layout(layout: Layout, spec: SurfaceTableSpec, turning: set[str],
-                     fixed: set[str], n_angle: int, n_face: int) -> Layout:
-    """The layout plus copies of its turning and fixed electrodes at the table's nodes.
-
-    Every turning electrode is copied at each angle node, every fixed one at each face node
-    (its position when the face is at that node, relative to the block's first face).
-    """
-    step = 360.0 / spec.angle_nodes
-    extra: list[Electrode] = []
-    for e in layout.electrodes:
-        if e.label in turning:
-            extra += [dataclasses.replace(e, label=_copy_label(e.label, k, 0),
-                                          angle_deg=e.angle_deg + k * step)
-                      for k in range(1, n_angle)]
-        elif e.label in fixed:
-            # at face F_j = F_0 + j*step the electrode sits j*step further behind the face
-            extra += [dataclasses.replace(e, label=_copy_label(e.label, 0, j),
-                                          chainage_m=float(e.chainage_m) - j * spec.face_step_m)
-                      for j in range(1, n_face)]
-    return dataclasses.replace(layout, electrodes=tuple(layout.electrodes) + tuple(extra),
-                               explicit_measurements=(), generators=())
-
-
-def _variant(q: tuple, turning: set[str], fixed: set[str], k: int, j: int) -> tuple:
-    def name(v: str | None) -> str | None:
-        if v is None:
-            return None
-        if v in turning and k:
-            return _copy_label(v, k, 0)
-        if v in fixed and j:
-            return _copy_label(v, 0, j)
-        return v
-    return tuple(name(v) for v in q)
-
-
 def _solve(layout: Layout, spec: SurfaceTableSpec, settings: Fem3DSettings, rho: float,
            block_start_m: float) -> tuple[np.ndarray, np.ndarray]:
     """``R_hom`` with and without the surface, shape (n_quadrupoles, n_angle, n_face), ohm."""
-    turning, fixed = _roles(layout)
+    turning, fixed = roles(layout)
     quads = [q.labels() for q in layout.measurements]
     n_angle = spec.angle_nodes if any(turning & set(q) for q in quads) else 1
     n_face = spec.face_nodes if any(fixed & set(q) for q in quads) else 1
-    big = _expanded_layout(layout, spec, turning, fixed, n_angle, n_face)
+    big = node_layout(layout, [k * 360.0 / spec.angle_nodes for k in range(n_angle)],
+                      [j * spec.face_step_m for j in range(n_face)])
     variants: list[tuple] = []
     where: list[tuple[int, int, int]] = []
     for i, q in enumerate(quads):
@@ -157,7 +110,7 @@ def _solve(layout: Layout, spec: SurfaceTableSpec, settings: Fem3DSettings, rho:
         js = range(n_face) if fixed & set(q) else (0,)
         for k in ks:
             for j in js:
-                variants.append(_variant(q, turning, fixed, k, j))
+                variants.append(node_quadrupole(q, turning, fixed, k, j))
                 where.append((i, k, j))
     out = []
     for cover in (layout.tunnel.cover_m, math.inf):

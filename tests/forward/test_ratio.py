@@ -66,7 +66,7 @@ def test_surface_factor_matches_image_method(method):
     for face, angle in points:
         want = layout_response(lay, sc, face, angle) / layout_response(deep, sc, face, angle)
         got = surface_factors(lay, face, angle, rho_ohmm=40.0, use_cache=False, method=method)
-        assert np.all(np.abs(want - 1.0) > 0.005) and want.max() > 1.5   # the surface matters
+        assert want.max() > 1.5   # the surface matters
         np.testing.assert_allclose(got, want, rtol=0.01, err_msg=f"face {face}, angle {angle}")
 
 
@@ -102,12 +102,15 @@ def test_table_copies_sit_where_the_electrodes_are_at_each_node():
     turned copy at angle node k is the electrode at cutterhead angle k * 360 / n, a fixed copy
     at face node j is the electrode seen from face F_0 + j * step (positions from the layout's
     own frames, :meth:`Layout.positions_machine`)."""
-    from tbminv.forward.surfacetable import SurfaceTableSpec, _copy_label, _expanded_layout
+    from tbminv.forward.copies import copy_label as _copy_label
+    from tbminv.forward.copies import node_layout
+    from tbminv.forward.surfacetable import SurfaceTableSpec
 
     lay = _point_layout(cover_m=6.0)
     spec = SurfaceTableSpec()
-    turning, fixed = {"T1", "T2"}, {"W1"}
-    big = _expanded_layout(lay, spec, turning, fixed, spec.angle_nodes, spec.face_nodes)
+    turning = {"T1", "T2"}
+    big = node_layout(lay, [k * 360.0 / spec.angle_nodes for k in range(spec.angle_nodes)],
+                      [j * spec.face_step_m for j in range(spec.face_nodes)])
     f0 = 480.0
     seen = big.positions_machine(f0, 0.0)
     for k in range(spec.angle_nodes):
@@ -119,3 +122,21 @@ def test_table_copies_sit_where_the_electrodes_are_at_each_node():
         want = lay.positions_machine(f0 + j * spec.face_step_m, 0.0)
         got = seen[_copy_label("W1", 0, j) if j else "W1"]
         np.testing.assert_allclose(got, want["W1"], atol=1e-9)
+
+
+@pytest.mark.slow
+def test_3d_readings_at_several_angles_from_one_mesh_match_image_method():
+    """``Model3D.response_angles`` (every angle's electrodes in one mesh) against the image
+    method under a 6 m cover (Telford et al. 1990, sec. 8.3), where the surface makes the
+    readings depend on the cutterhead angle. 1 %: the 3D model's accuracy on this coarse point
+    layout (measured with this project's model, this file)."""
+    from tbminv.forward.fem3d.model import Model3D
+
+    lay = _point_layout(cover_m=6.0)
+    sc = Scenario.homogeneous(40.0)
+    angles = [0.0, 37.0, 203.0]
+    got = Model3D(lay).response_angles(sc, 500.0, angles)
+    want = [layout_response(lay, sc, 500.0, a) for a in angles]
+    assert np.max(np.abs(want[1] / want[0] - 1.0)) > 0.02   # the angle matters here
+    for a, g, w in zip(angles, got, want):
+        np.testing.assert_allclose(g, w, rtol=0.01, err_msg=f"angle {a}")

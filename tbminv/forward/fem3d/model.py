@@ -50,6 +50,7 @@ from typing import Any
 
 import numpy as np
 
+from tbminv.forward.copies import node_layout, node_quadrupole, roles
 from tbminv.forward.fem3d.mesh import MeshSettings, TunnelMesh, layout_mesh
 from tbminv.forward.quadrupoles import Quadrupoles, quadrupole_labels
 from tbminv.gimli import configure_operator, ert, ert_data_container, pg
@@ -313,6 +314,45 @@ class Model3D:
         """Transfer resistances of ``measurements`` (default the protocol), ohm."""
         return np.asarray(self.forward.run(scenario, face_chainage_m, cutterhead_deg,
                                            measurements).r_ohm, float)
+
+    def response_angles(self, scenario: Scenario, face_chainage_m: float,
+                        angles_deg: Sequence[float], measurements: Quadrupoles | None = None
+                        ) -> list[np.ndarray]:
+        """Transfer resistances at several cutterhead angles from one mesh and solve, ohm.
+
+        The turning electrodes are put into the mesh at every angle at once
+        (:func:`tbminv.forward.copies.node_layout`); readings at each angle follow by
+        superposition. The mesh differs from the one-angle meshes of :meth:`response` only by
+        the extra electrode nodes.
+
+        Parameters
+        ----------
+        scenario : Scenario
+        face_chainage_m : float
+            Chainage of the cutterhead face, m.
+        angles_deg : sequence of float
+            Cutterhead angles, degrees.
+        measurements : sequence, optional
+            Quadrupoles (default the protocol).
+
+        Returns
+        -------
+        list of ndarray
+            One array of transfer resistances per angle, ohm.
+        """
+        angles = [float(a) for a in angles_deg]
+        quads = quadrupole_labels(self.layout, measurements)
+        turning, _fixed = roles(self.layout)
+        if len(angles) < 2 or not any(turning & set(q) for q in quads):
+            r = self.response(scenario, face_chainage_m, angles[0] if angles else 0.0,
+                              measurements)
+            return [r.copy() for _ in angles]
+        big = node_layout(self.layout, angles)
+        variants = [node_quadrupole(q, turning, set(), k, 0)
+                    for k in range(len(angles)) for q in quads]
+        r = Forward3D(big, self.settings).run(scenario, face_chainage_m, 0.0, variants).r_ohm
+        return [np.asarray(r[k * len(quads):(k + 1) * len(quads)], float)
+                for k in range(len(angles))]
 
 
 __all__ = ["Model3D", "Fem3DSettings", "ForwardResult", "Forward3D", "forward3d",
