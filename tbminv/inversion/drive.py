@@ -62,6 +62,7 @@ from tbminv.forward.ratio import (
     surface_factors,
 )
 from tbminv.forward.registry import make_model, model_options_for
+from tbminv.forward.surfacetable import SurfaceTableSpec
 from tbminv.inversion.contactfit import ContactFitter, build_response_table
 from tbminv.inversion.grid import build_parameter_grid
 from tbminv.inversion.history import DriveHistory, grid_signature
@@ -74,7 +75,12 @@ from tbminv.inversion.outcome import (
     AdvanceResult,
     ContactFit,
 )
-from tbminv.inversion.settings import SCHEDULER_NEEDS_COLD, InversionError, InversionSettings
+from tbminv.inversion.settings import (
+    SCHEDULER_NEEDS_COLD,
+    TABLE_MIN_POSITIONS,
+    InversionError,
+    InversionSettings,
+)
 from tbminv.layout import Layout
 from tbminv.readings.advance import AdvanceData
 from tbminv.readings.errorfloor import with_error_floor
@@ -113,6 +119,7 @@ class DriveInverter:
         self.grid_sha256 = grid_signature(self.grid.x_nodes, self.grid.r_nodes, self.grid.keep)
         self.last_run: DriveHistory | None = None
         self.stage_seconds: dict[str, float] = {}
+        self.surface_method = "table" if self.settings.surface_method == "table" else "direct"
         """Wall time of the last :meth:`run` by stage, s (surface factors, images, ...)."""
 
     def _clock(self, stage: str, t0: float) -> None:
@@ -182,6 +189,22 @@ class DriveInverter:
             self.rho_ref_ohmm = float(_round_sig(np.median(ra[ok])))
         return self.rho_ref_ohmm
 
+    def choose_surface_method(self, data: Sequence[AdvanceData]) -> str:
+        """``[invert] surface_method``, with ``auto`` resolved for these advances (logged)."""
+        method = self.settings.surface_method
+        if method != "auto":
+            return method
+        spec = SurfaceTableSpec()
+        positions = {(round(d.face_chainage_m, 3), round(d.cutterhead_deg % 360.0, 3))
+                     for d in data}
+        fixed = any(e.fixed_in_ground for e in self.layout.electrodes)
+        blocks = len({math.floor(d.face_chainage_m / spec.block_m) for d in data}) if fixed \
+            else 1
+        method = "table" if len(positions) >= TABLE_MIN_POSITIONS * blocks else "direct"
+        _LOG.info("surface factors: %s (%d face/angle positions in %d block(s))", method,
+                  len(positions), blocks)
+        return method
+
     def surface_corrected(self, adv: AdvanceData) -> AdvanceData:
         """The advance's readings as the same ground would give them without the surface.
 
@@ -191,7 +214,8 @@ class DriveInverter:
         if not (self.settings.surface_correction and needs_correction(self.layout)):
             return adv
         f = surface_factors(self.layout, adv.face_chainage_m, adv.cutterhead_deg,
-                            rho_ohmm=self.reference_resistivity(adv))
+                            rho_ohmm=self.reference_resistivity(adv),
+                            method=self.surface_method)
         return dataclasses.replace(adv, r_ohm=adv.r_ohm / f)
 
     def invert_advance(self, adv: AdvanceData, start: np.ndarray | None = None,
@@ -241,6 +265,7 @@ class DriveInverter:
         self.reference_resistivity(data[0])
         if self.settings.surface_correction and needs_correction(self.layout):
             t0 = time.perf_counter()
+            self.surface_method = self.choose_surface_method(data)
             try:
                 data = [self.surface_corrected(adv) for adv in
                         tqdm(data, disable=not progress, desc="surface correction (3D)",

@@ -33,6 +33,17 @@ class InversionError(ValueError):
     """Inversion input that cannot be used (the message names what and where)."""
 
 
+SURFACE_METHODS = ("auto", "table", "direct")
+"""Values of ``[invert] surface_method``."""
+
+TABLE_MIN_POSITIONS = 16
+"""``auto`` surface factors use the block table from this many distinct (face, cutterhead
+angle) positions per block on. On the demo layout the table's mesh (every angle and face node
+in it) is 3.3 times the size of a one-position mesh and took about as long as 15-40 direct
+positions on a loaded 2-core machine (``bench/results/surface_table.json``); with one angle per
+face the direct runs are cheaper for a 10-advance log."""
+
+
 @dataclass(frozen=True)
 class InversionSettings:
     """Settings of the drive inversion (TOML table ``[invert]``; lengths in m).
@@ -83,6 +94,12 @@ class InversionSettings:
         With a finite cover, divide each reading by the ratio of homogeneous 3D responses with
         and without the ground surface (:mod:`tbminv.forward.ratio`) before the axisymmetric
         inversion and contact fit. Default on; it costs two 3D runs per advance (cached).
+    surface_method : str
+        How the surface factors are computed: ``direct`` (two 3D runs per face and cutterhead
+        angle), ``table`` (two 3D runs per 32 m block of faces holding every angle and face
+        node, :mod:`tbminv.forward.surfacetable`) or ``auto`` (default: the table when the
+        drive has at least ``TABLE_MIN_POSITIONS`` face/angle positions per block, where it
+        is measured to pay, ``bench/results/surface_table.json``).
     time_lapse : bool
         Also regularise towards the previous (shifted) model: the smoothness acts on the
         change from that model (a difference-to-reference constraint in the spirit of
@@ -117,6 +134,7 @@ class InversionSettings:
     chi2_flag: float = 2.0
     warm_start: bool = True
     surface_correction: bool = True
+    surface_method: str = "auto"
     time_lapse: bool = False
     doi: bool = False
     contact_fit: bool = True
@@ -125,6 +143,9 @@ class InversionSettings:
     grid_radius_step_m: float | None = None
 
     def __post_init__(self) -> None:
+        if self.surface_method not in SURFACE_METHODS:
+            raise InversionError(f"[invert] surface_method = {self.surface_method!r}: expected "
+                                 f"one of {', '.join(SURFACE_METHODS)}")
         if self.lambda_rule not in LAMBDA_RULES:
             raise InversionError(f"[invert] lambda_rule = {self.lambda_rule!r}: expected one of "
                                  f"{', '.join(LAMBDA_RULES)}")
