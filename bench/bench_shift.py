@@ -91,9 +91,22 @@ def main() -> None:
         env)
     for name in ("25-advance shift, filling the cache", "25-advance shift, cache filled"):
         store = work / f"shift25-{len(cases)}.nc"
-        cases[name] = run(tb + ["invert", str(log), str(data / "demo_layout.toml"), str(store),
+        cases[name] = run(tb + ["invert", str(log), "--layout", str(data / "demo_layout.toml"),
+                                "--store", str(store),
                                 "--settings", str(data / "demo_settings.toml")], env)
         print(name, cases[name], flush=True)
+        if store.exists():   # does an advance cost more when more advances came before it?
+            import numpy as np
+            import xarray as xr
+
+            with xr.open_dataset(store) as ds:
+                t = np.asarray(ds["inversion_time_s"].values, float)
+                it = np.asarray(ds["iterations"].values, float) if "iterations" in ds else None
+            k = np.arange(t.size)
+            slope = float(np.polyfit(k, t, 1)[0]) if t.size > 2 else float("nan")
+            cases[name]["per_advance_s"] = [round(float(v), 2) for v in t]
+            cases[name]["iterations"] = None if it is None else [int(v) for v in it]
+            cases[name]["per_advance_slope_s_per_advance"] = round(slope, 3)
     if not args.skip_stock:
         sys.path.insert(0, str(Path(__file__).parent))
         import bench_invert  # noqa: E402 - the stock-chain runner of the per-advance benchmark
