@@ -24,7 +24,7 @@ from matplotlib.axes import Axes
 from matplotlib.colors import ListedColormap, LogNorm
 from matplotlib.figure import Figure
 from matplotlib.patches import Rectangle
-from matplotlib.ticker import FuncFormatter
+from matplotlib.ticker import FuncFormatter, LogFormatter, MaxNLocator
 
 from tbminv.results.section import (
     axis_median_log10,
@@ -118,11 +118,28 @@ def _plain(v: float, _pos: object = None) -> str:
     return f"{v:g}"
 
 
+class _PlainMinorLogFormatter(LogFormatter):
+    """Minor ticks of a logarithmic axis labelled in plain numbers (20, 50, 0.2, not 2e1).
+
+    Labels the ticks at 2 and 5 times a power of ten, and every tick matplotlib's
+    :class:`~matplotlib.ticker.LogFormatter` labels on the current view: all of them on an axis
+    shorter than 0.4 decade, a subset up to one decade. An axis that holds no power of ten
+    and no 2 or 5 (e.g. 60-90 ohm·m) still shows numbers.
+    """
+
+    def __init__(self) -> None:
+        super().__init__(labelOnlyBase=False)
+
+    def __call__(self, x: float, pos: int | None = None) -> str:
+        if x > 0 and (f"{x:.1g}"[0] in "25" or super().__call__(x, pos)):
+            return _plain(x)
+        return ""
+
+
 def _plain_log(axis) -> None:
-    """Plain numbers (not powers of ten) on a logarithmic axis."""
+    """Plain numbers (not powers of ten) on a logarithmic axis, with at least one label in view."""
     axis.set_major_formatter(FuncFormatter(_plain))
-    axis.set_minor_formatter(FuncFormatter(
-        lambda v, p: _plain(v) if f"{v:.1g}"[0] in "25" else ""))
+    axis.set_minor_formatter(_PlainMinorLogFormatter())
 
 
 def _colorbar(fig: Figure, mesh, ax: Axes) -> None:
@@ -369,6 +386,7 @@ def plot_data_fit(ds: xr.Dataset, ax: Axes | None = None, *,
     if hi:
         ax.axhline(float(hi), color="C3", lw=0.8, ls=":")
     ax.set_xlabel("advance (-)")
+    ax.xaxis.set_major_locator(MaxNLocator(integer=True))   # advances are whole numbers
     ax.set_ylabel("chi² per datum (-)")
     ax.set_yscale("log")
     _plain_log(ax.yaxis)

@@ -1,4 +1,4 @@
-"""Closed forms of the forward layer: the full-space geometric factor."""
+"""Closed forms of the forward layer: the full-space geometric factor, the plane contact."""
 
 from __future__ import annotations
 
@@ -7,7 +7,7 @@ import math
 import numpy as np
 import pytest
 
-from tbminv.forward.analytic import full_space_geometric_factor
+from tbminv.forward.analytic import contact_potential, full_space_geometric_factor
 from tbminv.gimli import ert, pg
 
 NAN3 = np.full((1, 3), np.nan)
@@ -45,3 +45,32 @@ def test_full_space_factor_matches_pygimli_deep_limit():
 
     ours = full_space_geometric_factor(at(0), at(1), at(2), at(3))
     np.testing.assert_allclose(ours, ref, rtol=1e-3)
+
+
+@pytest.mark.parametrize("rho2", [5.0, 500.0])
+@pytest.mark.parametrize("src_x", [-2.0, 3.0])
+def test_contact_potential_meets_the_interface_conditions(rho2, src_x):
+    """The plane-contact potential solves the boundary-value problem that defines it, checked
+    without the image construction: at the contact the potential is continuous and so is the
+    normal current density (1/rho) dV/dx (Telford, Geldart & Sheriff 1990, sec. 8.3, from
+    memory); away from it V is harmonic (zero Laplacian, by central differences); with equal
+    resistivities it is the full-space potential (sec. 8.2). Source on either side."""
+    rho1, c, h = 50.0, 1.0, 1e-4
+    src = np.array([src_x, 0.3, -0.2])
+
+    def v(x, y, z):
+        return float(contact_potential(rho1, rho2, c, src, np.array([x, y, z])))
+
+    for y, z in ((0.0, 0.0), (1.5, -0.7), (-3.0, 2.0)):
+        below, above = v(c - 1e-9, y, z), v(c + 1e-9, y, z)
+        assert above == pytest.approx(below, rel=1e-7)
+        e_below = (v(c - h, y, z) - v(c - 2 * h, y, z)) / h
+        e_above = (v(c + 2 * h, y, z) - v(c + h, y, z)) / h
+        assert e_above / rho2 == pytest.approx(e_below / rho1, rel=2e-3)
+    for p in ((-4.0, 1.0, 0.5), (0.2, -0.4, 0.9), (5.0, 2.0, -1.0)):
+        d2 = [(v(*(np.array(p) + d)) - 2 * v(*p) + v(*(np.array(p) - d))) / 1e-6
+              for d in np.eye(3) * 1e-3]
+        assert abs(sum(d2)) < 1e-4 * max(abs(x) for x in d2)
+    rec = np.array([4.0, -1.0, 2.0])
+    assert float(contact_potential(rho1, rho1, c, src, rec)) == pytest.approx(
+        rho1 / (4 * math.pi * np.linalg.norm(rec - src)), rel=1e-12)

@@ -32,7 +32,9 @@ def perfect():
 
 def test_reciprocity_with_steel(perfect):
     """Reciprocity (swap current and potential electrodes: Green's reciprocity theorem, e.g.
-    Telford et al. 1990 sec. 8.2) holds with the steel and tunnel in: within 0.5 %."""
+    Telford et al. 1990 sec. 8.2) holds with the steel and tunnel in. The model is not
+    symmetric to solver precision (truncated harmonic sums, mirror-image tail): measured
+    0.40 % at most with this project's model (this test); allowed 0.5 %."""
     g = perfect
     off = ~np.eye(len(LABELS), dtype=bool)
     rel = np.abs(g - g.T)[off] / np.abs(g)[off]
@@ -40,38 +42,45 @@ def test_reciprocity_with_steel(perfect):
 
 
 def test_capped_steel_tends_to_perfect_conductor(perfect):
-    """Capped steel resistivity 1e-2 -> 1e-6 ohm-m approaches the perfect-conductor limit
-    (exact limit of the floating equipotential body): same splitting (no mirror image) within
-    0.05 % at 1e-6; the default perfect conductor with mirror images within 1 %."""
+    """Capped steel resistivity 1e-2 -> 1e-6 ohm-m approaches the perfect-conductor limit (a
+    perfect conductor is one floating equipotential: Jackson 1999, Classical Electrodynamics,
+    3rd ed., sec. 1.9, from memory), and the gap closes in proportion to the cap (first order
+    in rho_steel / rho_ground: the steel's own resistance is in series with the ground's;
+    common practice, no source). Measured with this project's model (this test), same
+    splitting (no mirror image): 7.7e-3, 7.7e-5, 9.7e-7 at 1e-2, 1e-4, 1e-6 ohm-m; the
+    default perfect conductor with mirror images within 0.96 % of the plain splitting.
+    Allowed: 5e-6 at 1e-6, a ratio of 0.005-0.02 per factor 100 of the cap, 1.5 %."""
     plain = _potentials(face_image=False)
     errs = []
     for cap in (1e-2, 1e-4, 1e-6):
         g = _potentials(steel="capped", steel_resistivity_ohmm=cap)
         errs.append(np.nanmax(np.abs(g / plain - 1)))
-    assert errs[2] < 5e-4
-    assert errs[0] >= errs[2]
-    assert np.nanmax(np.abs(g / perfect - 1)) < 1e-2
+    assert errs[2] < 5e-6
+    assert 0.005 < errs[1] / errs[0] < 0.02 and 0.005 < errs[2] / errs[1] < 0.02, errs
+    assert np.nanmax(np.abs(g / perfect - 1)) < 1.5e-2
 
 
 def test_current_into_machine_far_field(perfect):
     """Current into the whole body: far away the body is a point source of the same current
-    (Gauss's law), V = rho I / (4 pi R) at 150 m from the body centre: within 0.5 %."""
+    (Gauss's law, e.g. Jackson 1999, Classical Electrodynamics, 3rd ed., sec. 1.3, from memory),
+    V = rho I / (4 pi R) at 150 m from the body centre. Measured 0.02 % with this project's
+    model (this test); allowed 0.1 %."""
     g = perfect
     v = g[LABELS.index("F"), LABELS.index("BODY")]
     ref = 100.0 / (4 * math.pi * (150.0 + 0.5 * 9.5))
-    assert v == pytest.approx(ref, rel=5e-3)
+    assert v == pytest.approx(ref, rel=1e-3)
 
 
 def test_insulated_face_electrode_near_machine_potential(perfect):
     """An insulated electrode 5 cm in front of the steel face reads close to the machine's
     potential when current enters the body: a perfect conductor is an equipotential and the
     potential is continuous across the thin gap (Jackson 1999, Classical Electrodynamics,
-    3rd ed., sec. 1.9, from memory). The 2 % bound is measured with this project's model
-    (this test and tests/forward/test_fem3d_model.py)."""
+    3rd ed., sec. 1.9, from memory). Measured 0.76 % below it with this project's model (this
+    test); allowed 1.2 %."""
     g = perfect
     vm = g[LABELS.index("BODY"), LABELS.index("BODY")]
     vc = g[LABELS.index("T1"), LABELS.index("BODY")]
-    assert vc == pytest.approx(vm, rel=2e-2)
+    assert vc == pytest.approx(vm, rel=1.2e-2)
 
 
 def test_electrode_on_steel_is_refused():

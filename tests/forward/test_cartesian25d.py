@@ -36,12 +36,13 @@ def layout(model_body: bool, cover_m: float = 14.0) -> Layout:
 def test_half_space_matches_image_solution():
     # point source under an insulating surface: one image source (Telford, Geldart & Sheriff
     # 1990, Applied Geophysics 2nd ed., sec. 8.3). pyGIMLi 2.5D, sr=False, 5 cm refinement
-    # nodes around electrodes, quality 34, max area 50 m^2: within 2.5 %.
+    # nodes around electrodes, quality 34, max area 50 m^2: measured 0.51-0.88 % with this
+    # project's model (this test); allowed 1.5 %.
     lay = layout(model_body=False)
     r = Cartesian25DModel(lay, Cartesian25DSettings(ratio_correction=False)).response(
         Scenario.homogeneous(100.0), 0.0)
     expected = make_model("analytic", lay).response(Scenario.homogeneous(100.0), 0.0)
-    np.testing.assert_allclose(r, expected, rtol=0.025)
+    np.testing.assert_allclose(r, expected, rtol=0.015)
 
 
 def test_projection_moves_side_electrodes_off_the_slab():
@@ -54,13 +55,16 @@ def test_projection_moves_side_electrodes_off_the_slab():
 
 
 def test_steel_slab_bias_is_large():
-    # the known bias: the slab is earthed across the whole section, so potentials near the
-    # machine fall far below the same layout without steel
+    # the section's bias: the steel becomes a slab earthed across the whole section (a 2.5D
+    # model is invariant along the strike; common practice, no source), so potentials near
+    # the machine fall far below the same layout without steel. Measured with this project's
+    # model (this test): 0.0023 of the steel-free pole reading, a factor of about 430; held
+    # to below 0.01.
     with_steel = Cartesian25DModel(layout(True), Cartesian25DSettings(ratio_correction=False))
     without = Cartesian25DModel(layout(False), Cartesian25DSettings(ratio_correction=False))
     hom = Scenario.homogeneous(100.0)
     ratio = with_steel.response(hom, 0.0)[0] / without.response(hom, 0.0)[0]
-    assert ratio < 0.5
+    assert ratio < 0.01
 
 
 def test_data_container_builder_poles_and_fields():

@@ -3,6 +3,12 @@
 Mesh settings of the closed-form checks are stated beside each test (default
 ``MeshSettings()``: box +-200 m, 16-sided cylinder, tetgen quality 1.3, 0.1 m refinement
 nodes around electrodes, 0.5 m graded refinement ahead of the face; P2 elements).
+
+Tolerance of the closed-form checks (:data:`CLOSED_FORM_TOL`): measured with this project's
+model (this file, P2 on ``MeshSettings()``), the largest relative error over the quadrupoles was
+0.28 % in the full space, 0.28 % under the ground surface and 0.13-0.21 % for the contacts
+0.5 D ahead and behind; near-null quadrupoles were within 1.5e-4 of the sum of their pole
+terms. Allowed: 0.5 % (a margin of about 1.8), near-null 0.5 % x 5 % = 2.5e-4 of that sum.
 """
 
 from __future__ import annotations
@@ -27,6 +33,8 @@ from tbminv.layout import Layout
 
 D = 6.0
 FACE = 500.0
+CLOSED_FORM_TOL = 0.005
+FAR_CONTACT_TOL = 0.01
 # smaller mesh for runs with the steel body (invariants, not closed forms)
 SMALL = MeshSettings(box_m=150.0, n_segments=12, face_size_m=0.8, growth=1.6,
                      refine_ahead_m=15.0)
@@ -78,10 +86,10 @@ def _quad_values(g, quads):
     return terms.sum(axis=1), np.abs(terms).sum(axis=1)
 
 
-def _check_against(r, ana, scale, tol=0.02):
-    """Relative 2 % check; near-null quadrupoles (|V| < 5 % of the sum of the magnitudes of
-    their four pole terms) are held to 2 % of 5 % of that sum, since their relative error
-    amplifies the pole-potential error by 1/cancellation."""
+def _check_against(r, ana, scale, tol=CLOSED_FORM_TOL):
+    """Relative check at ``tol``; near-null quadrupoles (|V| < 5 % of the sum of the magnitudes
+    of their four pole terms) are held to ``tol`` of 5 % of that sum, since their relative
+    error amplifies the pole-potential error by 1/cancellation."""
     err = np.abs(r - ana)
     strong = np.abs(ana) >= 0.05 * scale
     assert strong.sum() > 0.6 * len(ana)
@@ -93,7 +101,7 @@ def _check_against(r, ana, scale, tol=0.02):
 
 def test_full_space_every_quadrupole():
     """Homogeneous full space, body and cavity out, P2 on MeshSettings(): every quadrupole
-    within 2 % of V = rho I/(4 pi)(1/AM - 1/AN - 1/BM + 1/BN) (point source in a full space,
+    within 0.5 % of V = rho I/(4 pi)(1/AM - 1/AN - 1/BM + 1/BN) (point source in a full space,
     Telford, Geldart & Sheriff 1990, Applied Geophysics 2nd ed., sec. 8.2)."""
     lay = make_layout()
     res = Forward3D(lay).run(Scenario.homogeneous(100.0), FACE, 0.0, QUADS)
@@ -105,7 +113,7 @@ def test_full_space_every_quadrupole():
 
 def test_half_space_image_source():
     """Ground surface at the cover (4 m above the crown), body and cavity out, P2 on
-    MeshSettings(): within 2 % of the image-source solution of a buried point source
+    MeshSettings(): within 0.5 % of the image-source solution of a buried point source
     (Telford, Geldart & Sheriff 1990, sec. 8.2: V = rho I/(4 pi)(1/r + 1/r'))."""
     cover = 4.0
     lay = make_layout(cover=cover)
@@ -140,7 +148,7 @@ def _contact_analytic(points, rho1, rho2, c):
 CONTACT_QUADS = [q for q in QUADS if "W1" not in q]
 
 
-def _contact_case(ratio: float, ahead_d: float) -> None:
+def _contact_case(ratio: float, ahead_d: float, tol: float = CLOSED_FORM_TOL) -> None:
     lay = make_layout()
     rho1 = 100.0
     c_ahead = ahead_d * D
@@ -152,14 +160,14 @@ def _contact_case(ratio: float, ahead_d: float) -> None:
     pts, _ = electrode_points(lay, FACE)
     ana, scale = _quad_values(_contact_analytic(pts, rho1, rho1 * ratio, c_ahead),
                               CONTACT_QUADS)
-    _check_against(res.r_ohm, ana, scale)
+    _check_against(res.r_ohm, ana, scale, tol)
 
 
 @pytest.mark.parametrize("ratio", [10.0, 0.1])
 @pytest.mark.parametrize("ahead_d", [0.5, -0.5])
 def test_plane_contact_image_method(ratio, ahead_d):
     """Contact square to the axis (honoured by the mesh), no body, no cavity, P2 on
-    MeshSettings(): within 2 % of the image method (Telford, Geldart & Sheriff 1990, sec. 8.3),
+    MeshSettings(): within 0.5 % of the image method (Telford, Geldart & Sheriff 1990, sec. 8.3),
     rho2/rho1 = 10 and 0.1, contact 0.5 D ahead and 0.5 D behind the face (face past it)."""
     _contact_case(ratio, ahead_d)
 
@@ -168,8 +176,11 @@ def test_plane_contact_image_method(ratio, ahead_d):
 @pytest.mark.parametrize("ratio", [10.0, 0.1])
 @pytest.mark.parametrize("ahead_d", [10.0, 5.0, 2.0, 1.0])
 def test_plane_contact_image_method_far(ratio, ahead_d):
-    """As above, contact 10 D to 1 D ahead (Telford, Geldart & Sheriff 1990, sec. 8.3)."""
-    _contact_case(ratio, ahead_d)
+    """As above, contact 10 D to 1 D ahead (Telford, Geldart & Sheriff 1990, sec. 8.3). The
+    contact plane far ahead is meshed coarser: measured with this project's model (this test),
+    largest relative error 0.62 % (x10 at 10 D), near-null quadrupoles within 2.6e-4 of the
+    sum of their pole terms (x0.1 at 1 D); allowed 1 % and 5e-4 (a margin of about 1.6)."""
+    _contact_case(ratio, ahead_d, tol=FAR_CONTACT_TOL)
 
 
 STEEL_EXTRA = [{"label": "BODY", "kind": "machine"},
@@ -180,9 +191,12 @@ STEEL_EXTRA = [{"label": "BODY", "kind": "machine"},
 
 
 def test_reciprocity_and_steel_with_body():
-    """With body and cavity in: swapping AB and MN changes R by < 0.5 % (reciprocity theorem,
-    e.g. Parasnis 1988, Geophysical Prospecting 36:225-233; an invariant of the physics), and a
-    current into the kind-machine node equals one into any other steel node (bare SB)."""
+    """With body and cavity in: swapping AB and MN leaves R unchanged (reciprocity theorem,
+    Parasnis 1988, Reciprocity theorems in geoelectric and geoelectromagnetic work,
+    Geoexploration 25:177-198, from memory; an invariant of the physics), and a
+    current into the kind-machine node equals one into any other steel node (bare SB). The
+    finite-element system is symmetric, so the discrete model obeys reciprocity to solver
+    precision (measured below 1e-9 with this project's model, this test); allowed 1e-6."""
     lay = make_layout(body=True, cavity=True, extra=STEEL_EXTRA)
     quads = [("T1", "S2", "T2", "W1"), ("T1", "R2", "S1", "R1"), ("T3", None, "W1", None),
              ("BODY", "R2", "T1", "R1"), ("S2", "R2", "W1", "R1")]
@@ -192,7 +206,7 @@ def test_reciprocity_and_steel_with_body():
     r = Forward3D(lay, st).run(Scenario.homogeneous(100.0), FACE, 0.0, quads).r_ohm
     n = 5
     assert np.all(np.abs(r[:n]) > 0)
-    np.testing.assert_allclose(r[n:2 * n], r[:n], rtol=5e-3)
+    np.testing.assert_allclose(r[n:2 * n], r[:n], rtol=1e-6)
     # current into BODY (axis, mid-shield) == current into SB (on the skin at -5 m)
     np.testing.assert_allclose(r[3], r[10], rtol=1e-4)
     # the machine reads one potential: BODY and SB as potential electrodes agree
@@ -228,9 +242,14 @@ def test_machine_resistivity_convergence():
 
 
 def test_geometric_factors_homogeneous(tmp_path, monkeypatch):
-    """Body in, homogeneous ground: rho_a = k R equals rho within 1 % (ratio correction with
-    numeric factors, Fox et al. 1980, Geophysics 45(1):75-93) for 30 and 1000 ohm-m with
-    factors from a 100 ohm-m run; factors come from the cache on the second call."""
+    """Numeric geometric factors with the body in: cached, the same from every entry point, and
+    k R = rho for a homogeneous ground of 30 and 1000 ohm-m with factors from a 100 ohm-m run.
+
+    In a homogeneous ground every potential scales with rho (V = rho I G with G fixed by the
+    geometry; Telford, Geldart & Sheriff 1990, Applied Geophysics 2nd ed., sec. 8.2), so
+    k R = rho exactly, but for the steel, whose 1e-5 ohm-m does not scale with the ground:
+    measured 1.2e-4 at most with this project's model (this test); allowed 5e-4.
+    """
     monkeypatch.setenv("TBMINV_CACHE_DIR", str(tmp_path))
     lay = make_layout(body=True, cavity=False, extra=STEEL_EXTRA)
     quads = [("T1", "S2", "T2", "W1"), ("T1", "R2", "S1", "R1"), ("BODY", "R2", "T1", "R1"),
@@ -249,13 +268,17 @@ def test_geometric_factors_homogeneous(tmp_path, monkeypatch):
     np.testing.assert_array_equal(geometric_factors_from_response(r0, 100.0), k)
     for rho in (30.0, 1000.0):
         r = Forward3D(lay, st).run(Scenario.homogeneous(rho), FACE, 0.0, quads).r_ohm
-        np.testing.assert_allclose(apparent_resistivity(r, k), rho, rtol=0.01)
+        np.testing.assert_allclose(apparent_resistivity(r, k), rho, rtol=5e-4)
 
 
 def test_jacobian_and_response_not_zero():
-    """Guards the zero-Jacobian trap on 2-CPU machines (pyGIMLi notes): an ERT Jacobian on a
-    small 3D mesh is not all zeros and obeys Euler's theorem for a response homogeneous of
-    degree 1 in resistivity, sum_j J_ij rho_j = R_i (an identity, no source needed)."""
+    """An ERT Jacobian on a small 3D mesh is not all zeros (pyGIMLi's sensitivity loop runs no
+    thread unless :mod:`tbminv.gimli` sets the worker count: on 2 CPUs it gives a zero Jacobian)
+    and obeys Euler's theorem for homogeneous functions: the response is homogeneous of
+    degree 1 in the cell resistivities, so sum_j J_ij rho_j = R_i (Euler's theorem, e.g.
+    Courant 1936, Differential and Integral Calculus vol. 2, ch. II, from memory). Measured
+    2.3e-4 with this project's model (this test, P1, pyGIMLi's refined forward mesh); allowed
+    1e-3 (a wrong or partly summed Jacobian is off by far more)."""
     g = TunnelGeometry(radius_m=3.0, shield_length_m=10.0, cutterhead_thickness_m=1.0,
                        model_body=False, model_cavity=False)
     pts = {"A": np.array([0.0, 0.0, 0.0]), "B": np.array([4.0, 0.0, 0.0]),
@@ -281,6 +304,6 @@ def test_jacobian_and_response_not_zero():
     J = np.array(fop.jacobian())
     assert J.shape == (2, tm.mesh.cellCount())
     assert np.any(J != 0)
-    np.testing.assert_allclose(J @ np.asarray(rho), resp, rtol=0.02)
+    np.testing.assert_allclose(J @ np.asarray(rho), resp, rtol=1e-3)
     u = unit_potentials(tm, np.asarray(rho), [tm.electrode_nodes["A"]], p2=False)
     assert u.shape == (1, tm.mesh.nodeCount()) and np.any(u != 0)

@@ -7,6 +7,8 @@ physics; the drive tests with the machine in use the numerical models.
 
 from __future__ import annotations
 
+import math
+
 import numpy as np
 import pytest
 from scipy.stats import chi2 as chi2_dist
@@ -58,8 +60,8 @@ def test_contact_drive_coverage_and_accuracy(setup, contrast):
     _, model, table = setup
     fit = ContactFitter(table)
     faces = np.arange(0.0, 30.0 - 0.5 * D, 1.5)
-    hits = n = 0
-    errs = []
+    hits = n = contrast_hits = 0
+    errs, log_errs = [], []
     for seed in range(6):  # seeds 0..5, 2 % Gaussian noise
         r = drive(model, contrast, seed, faces)
         for f, e in zip(faces, fit.fit_drive(r, np.full_like(r, 0.02), faces)):
@@ -70,8 +72,17 @@ def test_contact_drive_coverage_and_accuracy(setup, contrast):
                 hits += bool(e.found and e.ahead_lo_m <= true <= hi)
                 errs.append(abs(e.ahead_m - true))
                 assert (e.contrast > 1) == (contrast > 1)  # which way
+                contrast_hits += bool(e.contrast_lo <= contrast <= e.contrast_hi)
+                log_errs.append(abs(math.log10(e.contrast / contrast)))
     assert hits / n >= 0.9
     assert np.median(errs) <= 0.5 * D
+    # how much: the true contrast (x10 or x0.1) against the fitted one and its 95 % profile
+    # interval. Measured with this project's model (this test, 36 fits per contrast): the
+    # interval held the truth in 35 of 36; |log10(fitted / true)| median 0.086 (x10) and
+    # 0.050 (x0.1), largest 0.20. Allowed: 90 % coverage, median 0.15 (a factor 1.4), largest
+    # 0.3 (a factor 2).
+    assert contrast_hits / n >= 0.9
+    assert np.median(log_errs) <= 0.15 and max(log_errs) <= 0.3, log_errs
 
 
 def test_homogeneous_reports_no_contact(setup):

@@ -83,10 +83,19 @@ def test_operator_jacobian_is_not_zero(layout):
     op = inv.operator(0.0, 0.0)
     r, jac = op.jacobian(np.full(inv.grid.n_param, 50.0))
     assert np.all(np.isfinite(r)) and np.count_nonzero(jac) > 0.5 * jac.size
-    # homogeneous ground: d ln R / d ln rho sums to 1 over all cells (R scales with rho
-    # where the fixed regions are perfect conductors; the lining breaks this only slightly)
+    # each row's sum is dR / d ln(lambda) for every parameter scaled by lambda: checked against
+    # a central difference of the response (the derivative's definition; truncation error
+    # about eps^2 / 6 = 2e-7, measured 1.6e-7 with this project's model; allowed 1e-6)
+    rho = np.full(inv.grid.n_param, 50.0)
+    eps = 1e-3
+    fd = (op.response(rho * math.exp(eps)) - op.response(rho * math.exp(-eps))) / (2 * eps)
+    np.testing.assert_allclose(jac.sum(axis=1), fd, rtol=1e-6)
+    # homogeneous ground: d ln R / d ln rho would sum to 1 over all cells if every region
+    # scaled with rho (Euler's theorem for a response homogeneous of degree 1); the lining's
+    # fixed 300 ohm-m takes a share, measured 1.2 % at 50 ohm-m with this project's model
+    # (this test); allowed 2 %
     total = jac.sum(axis=1) / r
-    assert np.all(np.abs(total - 1.0) < 0.1), total
+    assert np.all(np.abs(total - 1.0) < 0.02), total
 
 
 @pytest.mark.slow
@@ -102,7 +111,7 @@ def test_contact_fit_along_the_drive(layout, name, contrast):
     e = np.array([d.rel_error for d in data])
     faces = [d.face_chainage_m for d in data]
     est = fitter.fit_drive(r, e, faces)
-    hits = n = 0
+    hits = n = contrast_hits = 0
     for f, es in zip(faces, est):
         true = 30.0 - f
         if true > 2 * D + 1e-9:
@@ -113,12 +122,23 @@ def test_contact_fit_along_the_drive(layout, name, contrast):
         assert (es.contrast > 1) == (contrast > 1)
         hi = es.ahead_hi_m if math.isfinite(es.ahead_hi_m) else np.inf
         hits += bool(es.ahead_lo_m <= true <= hi)
+        # how much: the 95 % interval of the contrast holds the truth; where it is closed (not
+        # reaching a table end) the fitted contrast is within a factor 2 of it. Measured with
+        # this project's model (this test): 7 of 7 intervals hold the truth for each drive;
+        # closed at 3-4.5 m (x10) and 3-4.5 m (x0.1), |log10(fitted / true)| at most 0.19.
+        contrast_hits += bool(es.contrast_lo <= contrast <= es.contrast_hi)
+        if not es.contrast_open:
+            assert abs(math.log10(es.contrast / contrast)) <= 0.3, (true, es.contrast)
     assert n >= 6
     assert hits / n >= 0.9, (hits, n)
+    assert contrast_hits / n >= 0.9, (contrast_hits, n)
 
 
 @pytest.mark.slow
 def test_warm_start_matches_cold_in_fewer_iterations(layout):
+    # a property of our own scheme, not of the physics: the starting model changes the path,
+    # not the regularised solution, in the well-covered zone; the 5 % bound is common
+    # practice, no source
     data = drive_data("contact10_seed11", layout)[8:11]
     settings = InversionSettings(contact_fit=False)
     warm = DriveInverter(layout, settings).run(data)

@@ -103,10 +103,6 @@ def test_contrast_interval_holds_the_true_contrast(name):
     near = _near(name)
     found = [(d, es) for d, es in near if es is not None and getattr(es, "found", False)]
     assert found, f"{name}: no contact reported within 2 diameters"
-    missing = [f for f in ("contrast_lo", "contrast_hi") if not hasattr(found[0][1], f)]
-    if missing:
-        pytest.skip(f"ContactEstimate has no {', '.join(missing)}: the contact fit states no "
-                    "contrast interval yet")
     c_true = DRIVES[name][1]
     held = [_holds(es.contrast_lo, es.contrast_hi, c_true) for _, es in found]
     report = [(round(d, 2), es.contrast_lo, es.contrast, es.contrast_hi) for d, es in found]

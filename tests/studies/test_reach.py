@@ -55,6 +55,11 @@ def test_reach_matches_image_method_crossing(model, contrast):
                              face_chainage_m=0.0)
     ds = reach_study(layout, settings, model=fwd)
     d = ds.distance_ahead.values
+    # For model="analytic" the response below is the same image-method closed form the model
+    # evaluates (checked on its own against the interface conditions in
+    # tests/forward/test_analytic.py): that branch checks the reach machinery (threshold,
+    # interpolated crossing) against a root found by scipy's brentq; "axisym" checks the
+    # response too.
     kk = (contrast - 1) / (contrast + 1)
     a = np.array([0.05, 0.0, 0.0])
     m = np.array([0.05, -1.5, 0.0])

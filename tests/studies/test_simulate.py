@@ -131,11 +131,12 @@ def test_write_readings_csv_and_parquet(tmp_path):
 
 
 def test_3d_model_matches_closed_form():
-    """The default 3D model through simulate_drive, no body, full space: within 2 % of
-    V = rho I/(4 pi r) superposition (Telford, Geldart & Sheriff 1990, sec. 8.2)."""
+    """The default 3D model through simulate_drive, no body, full space, against
+    V = rho I/(4 pi r) superposition (Telford, Geldart & Sheriff 1990, sec. 8.2): measured
+    0.20-0.21 % with this project's model (this test); allowed 0.5 %."""
     lay = _layout()
     sc = Scenario.homogeneous(50.0)
     df = simulate_drive(lay, sc, [100.0], model="3d", current_a=2.0)
     ref = simulate_drive(lay, sc, [100.0], model=PointModel(lay), current_a=2.0)
-    np.testing.assert_allclose(df.voltage_v, ref.voltage_v, rtol=0.02)
+    np.testing.assert_allclose(df.voltage_v, ref.voltage_v, rtol=0.005)
     assert np.all(df.voltage_v != 0)
