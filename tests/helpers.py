@@ -118,3 +118,16 @@ def assert_cf_compliant(store: Path, tmp_path: Path) -> None:
         output_format="json")
     assert not errors
     assert passed, report.read_text()
+
+
+def full_space_layout(electrodes: list[dict], measurements: list[dict], name: str,
+                      body: bool = False, cavity: bool = False) -> Layout:
+    """A deep D = 6 m layout of the given electrodes and quadrupoles; steel and bore optional
+    (both out: a full space, for closed forms)."""
+    return Layout.from_dict({
+        "name": name,
+        "machine": {"diameter_m": 6.0, "shield_length_m": 9.0, "cutterhead_thickness_m": 1.0,
+                    "model_body": body},
+        "tunnel": {"cover_m": "inf", "lining_resistivity_ohmm": 300.0, "length_m": 30.0,
+                   "model_cavity": cavity},
+        "electrode": electrodes, "measurement": measurements}, source=f"<{name}>")

@@ -423,14 +423,18 @@ class AxisymSolver:
 
     # ------------------------------------------------------------------ solving
     def _harmonic(self, m: int, sig: np.ndarray, rho_src: np.ndarray,
-                  want_adjoint: bool = False) -> dict[str, Any]:
-        """Solve harmonic m for all active sources (and receivers' adjoint fields)."""
+                  want_adjoint: bool = False, every: bool = False) -> dict[str, Any]:
+        """Solve harmonic m for all active sources (and receivers' adjoint fields).
+
+        ``every``: all sources and receivers, whatever their harmonic count.
+        """
         p, dof, steel_dof = self._p0 if m == 0 else self._p1
         a = self._assemble(self.k0 + m * m * self.k1, sig)
         a_red = (p.T @ a @ p).tocsc()
         solve = self._factor(m, a_red)
         cm_w = harmonic_weight(m)
-        act = [js for js in range(len(self.sources)) if self.source_harmonics[js] >= m]
+        act = [js for js in range(len(self.sources))
+               if every or self.source_harmonics[js] >= m]
         n = self.mesh.n_nodes
         rhs = np.zeros((n, len(act)))
         extra = np.zeros((p.shape[1], len(act)))
@@ -465,7 +469,8 @@ class AxisymSolver:
         w = p @ solve(p.T @ rhs + extra) if act else np.zeros((n, 0))
         out: dict[str, Any] = {"act": act, "w": w, "up": up_t, "a_up": a_up}
         if want_adjoint:
-            ract = [jk for jk in range(len(self.receivers)) if self.receiver_harmonics[jk] >= m]
+            ract = [jk for jk in range(len(self.receivers))
+                    if every or self.receiver_harmonics[jk] >= m]
             load = np.zeros((p.shape[1], len(ract)))
             for c, jk in enumerate(ract):
                 ek = self.receivers[jk]
@@ -572,6 +577,46 @@ class AxisymSolver:
         rho_src = self._source_rho(sig)
         sec = sum(self._map_harmonics("_solve_range", sig, rho_src))
         return AxisymSolution(self, sec, rho_src, np.asarray(rho_ground, float))
+
+    def harmonic_fields(self, rho_ground: np.ndarray, m_max: int, nodes: np.ndarray
+                        ) -> tuple[np.ndarray, np.ndarray]:
+        """Harmonics of every source field and every receiver's adjoint field at some nodes.
+
+        The total field of a unit current at source ``s`` is
+        ``u(x, r, phi) = sum_m u[m, :, s] cos(m (phi - theta_s))`` and the adjoint field of
+        receiver ``k`` (a unit current there, solved with the same floating steel)
+        ``v = sum_m v[m, :, k] cos(m (phi - theta_k))``, whatever harmonic count the
+        readings themselves need. Current into the steel (or read on it) has ``m = 0`` only.
+
+        Parameters
+        ----------
+        rho_ground : numpy.ndarray
+            Ground-cell resistivities, ohm-m.
+        m_max : int
+            Highest harmonic.
+        nodes : numpy.ndarray of int
+            Mesh nodes to return.
+
+        Returns
+        -------
+        (numpy.ndarray, numpy.ndarray)
+            ``u`` (m_max + 1, n_nodes, n_sources) and ``v`` (m_max + 1, n_nodes,
+            n_receivers), V/A.
+        """
+        sig = self.cell_conductivity(rho_ground)
+        rho_src = self._source_rho(sig)
+        for e in self.sources:
+            prim = self._primary.get(e.label)
+            if prim is not None and prim.shape[0] <= m_max:
+                self._primary[e.label] = self._primary_of(e, int(m_max))
+        nodes = np.asarray(nodes, dtype=int)
+        u = np.zeros((m_max + 1, nodes.size, len(self.sources)))
+        v = np.zeros((m_max + 1, nodes.size, len(self.receivers)))
+        for m in range(m_max + 1):
+            h = self._harmonic(m, sig, rho_src, want_adjoint=True, every=True)
+            u[m] = (h["w"] + h["up"])[nodes]
+            v[m] = h["v"][nodes]
+        return u, v
 
     def jacobian(self, rho_ground: np.ndarray, pairs: Sequence[tuple[str, str]],
                  theta_deg: Mapping[str, float] | None = None
