@@ -6,11 +6,12 @@ Commands (the README lists them; DEVELOPERS.md the file formats)::
                     [--model axisym|3d|section] [--noise-rel R] [--noise-abs V] [--seed N]
     tbminv check READINGS --layout L.toml --out DIR [--settings S.toml]
     tbminv invert READINGS --layout L.toml --store STORE.nc [--settings S.toml] [--cold]
-                    [--scheduler ADDRESS]
+                    [--scheduler ADDRESS] [--probes PROBES.csv]
     tbminv reach --layout L.toml --out DIR [--contrast C] [--noise-rel R] [--noise-abs V]
                  [--false-alarm P] [--detection-probability P] [--sweep SWEEP.toml]
                  [--scheduler ADDRESS]
     tbminv report STORE.nc --out DIR [--settings S.toml] [--materials TABLE] [--shift LABEL]
+                  [--probes PROBES.csv]
     tbminv demo --out DIR
     tbminv env                      # environment report for bug reports
 
@@ -37,6 +38,7 @@ from tbminv.inversion.settings import InversionError, load_settings
 from tbminv.jobs import invert_job, reach_job, report_job, run_check
 from tbminv.layout import LayoutError, load_layout
 from tbminv.materials import MaterialTableError
+from tbminv.readings.probes import ProbeLogError
 from tbminv.readings.qc import QCError
 from tbminv.readings.reader import ReadingsError
 from tbminv.results.ahead import AheadSettingsError
@@ -132,7 +134,8 @@ def cmd_check(args: argparse.Namespace) -> int:
 def cmd_invert(args: argparse.Namespace) -> int:
     """Run ``tbminv invert``."""
     return invert_job(args.readings, args.layout, args.store, settings_path=args.settings,
-                      cold=args.cold, scheduler=args.scheduler, echo=print)
+                      cold=args.cold, scheduler=args.scheduler, echo=print,
+                      probes_path=args.probes)
 
 
 def cmd_reach(args: argparse.Namespace) -> int:
@@ -148,7 +151,8 @@ def cmd_reach(args: argparse.Namespace) -> int:
 def cmd_report(args: argparse.Namespace) -> int:
     """Run ``tbminv report``."""
     return report_job(args.store, args.out, settings_path=args.settings,
-                      materials_path=args.materials, shift=args.shift, echo=print)
+                      materials_path=args.materials, shift=args.shift, echo=print,
+                      probes_path=args.probes)
 
 
 def cmd_demo(args: argparse.Namespace) -> int:
@@ -219,6 +223,9 @@ def build_parser() -> argparse.ArgumentParser:
     i.add_argument("--scheduler", default=None,
                    help="dask scheduler address: run the cold-started advances (--cold) on its "
                         "workers")
+    i.add_argument("--probes", default=None,
+                   help="probe log (CSV): probed contacts constrain the contact fit; a probe "
+                        "that contradicts the readings is flagged, not applied")
     i.set_defaults(func=cmd_invert)
 
     r = sub.add_parser("reach", help="how far ahead a layout sees a contrast")
@@ -259,6 +266,9 @@ def build_parser() -> argparse.ArgumentParser:
                          "table")
     rp.add_argument("--shift", default=None,
                     help="shift to report (default: the shift of the last advance)")
+    rp.add_argument("--probes", default=None,
+                    help="probe log (CSV): drawn on the figures, listed, checked against the "
+                         "contact fit, and (without --materials) the site material table")
     rp.set_defaults(func=cmd_report)
 
     d = sub.add_parser("demo", help="run the whole chain on the bundled demo drive")
@@ -291,7 +301,7 @@ def main(argv: Sequence[str] | None = None) -> int:
     func: Callable[[argparse.Namespace], int] = args.func
     expected = (CLIError, LayoutError, ScenarioError, NotAxisymmetricError, FileNotFoundError,
                 ReadingsError, QCError, SectionError, InversionError, AheadSettingsError,
-                MaterialTableError)
+                MaterialTableError, ProbeLogError)
     try:
         return func(args)
     except expected as exc:

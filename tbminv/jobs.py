@@ -41,7 +41,7 @@ from tbminv.inversion.settings import (
     load_settings,
 )
 from tbminv.layout import Layout, load_layout
-from tbminv.materials import load_material_table
+from tbminv.materials import load_material_table, save_material_table
 from tbminv.plots.qc import write_figure
 from tbminv.plots.reach import plot_reach_map, plot_response_vs_distance
 from tbminv.plots.section import save_figure
@@ -51,11 +51,13 @@ from tbminv.readings.advance import (
     PreparedReadings,
     prepare_advances,
 )
+from tbminv.readings.probes import ProbeLog, read_probe_log
 from tbminv.readings.qc import QCResult, QCSettings, _json, summary_text
 from tbminv.readings.reader import Readings
 from tbminv.report import write_report
 from tbminv.results.ahead import AheadSettings
 from tbminv.results.drivestate import add_history, read_history, repeated_advances
+from tbminv.results.probecheck import site_material_table
 from tbminv.results.section import build_section
 from tbminv.results.store import append_shift, check_appendable, open_section
 from tbminv.studies.reach import ReachSettings, best_measurements, load_sweep, reach_study
@@ -130,7 +132,7 @@ def run_drive(readings: str | Path | pd.DataFrame | PreparedReadings, layout: La
               cold: bool = False, shift: str | None = None,
               layout_path: str | Path | None = None, progress: bool = False,
               scheduler: str | None = None, client: Any | None = None,
-              resume: bool = True) -> xr.Dataset:
+              resume: bool = True, probes: ProbeLog | None = None) -> xr.Dataset:
     """Check, invert and store a readings log (one shift) in the section store.
 
     Parameters
@@ -164,6 +166,10 @@ def run_drive(readings: str | Path | pd.DataFrame | PreparedReadings, layout: La
     resume : bool
         Take the advances journaled by an earlier run of the same inputs and settings from the
         journal (default); False starts again (the old journal is replaced).
+    probes : ProbeLog, optional
+        Probe log constraining the contact fit (:mod:`tbminv.inversion.probefit`); a
+        constraint that contradicts the readings is flagged per advance
+        (``probe_contradicts``) and not applied.
 
     Returns
     -------
@@ -195,6 +201,7 @@ def run_drive(readings: str | Path | pd.DataFrame | PreparedReadings, layout: La
     settings = settings or InversionSettings()
     inverter = DriveInverter(layout, settings)
     t_start = time.perf_counter()
+    inverter.probes = probes
     if isinstance(readings, PreparedReadings):
         prepared = readings
     else:
@@ -242,6 +249,7 @@ def run_drive(readings: str | Path | pd.DataFrame | PreparedReadings, layout: La
         "readings_sha256": readings_sha, "advances_sha256": _advances_sha256(data),
         "layout": layout.to_dict(), "settings": settings.to_dict(), "cold": bool(cold),
         "continues_from": history.signature() if history is not None else None,
+        "probes": None if probes is None else probes.to_frame().to_csv(index=False),
         "tbminv_version": tbminv.__version__, "versions": versions()})
     if not resume:
         journal.remove()
@@ -365,7 +373,8 @@ EXIT_PARTIAL = 3
 def invert_job(readings_path: str | Path, layout_path: str | Path, store_path: str | Path, *,
                settings_path: str | Path | None = None, cold: bool = False,
                scheduler: str | None = None, progress: bool = True,
-               echo: Callable[[str], None] | None = None) -> int:
+               echo: Callable[[str], None] | None = None,
+               probes_path: str | Path | None = None) -> int:
     """Check, invert and store one readings log; say what was done (``tbminv invert``).
 
     Each advance's image is journaled beside the store as soon as it is done; after a crash or
@@ -385,6 +394,9 @@ def invert_job(readings_path: str | Path, layout_path: str | Path, store_path: s
         Show progress bars.
     echo : callable, optional
         Where the lines for the user go (the command line passes ``print``).
+    probes_path : path, optional
+        Probe log (CSV, :mod:`tbminv.readings.probes`) constraining the contact fit; its bad
+        rows go to ``quarantine.csv`` in :func:`qc_folder` of the probe log.
 
     The quarantine and the per-reading QC flags go to :func:`qc_folder`.
 
@@ -402,10 +414,19 @@ def invert_job(readings_path: str | Path, layout_path: str | Path, store_path: s
     layout = load_layout(layout_path)
     settings, qc = load_settings(settings_path)
     folder = qc_folder(store_path, readings_path)
+    probes = read_probe_log(probes_path) if probes_path else None
+    if probes is not None:
+        pq = probes.write_quarantine(qc_folder(store_path, probes_path) / "quarantine.csv")
+        echo(f"probe log {probes_path}: {len(probes.rows)} of {probes.rows_read} rows kept, "
+             f"{len(probes.contacts())} contact(s); quarantine -> {pq}")
     ds = run_drive(readings_path, layout, store_path, settings=settings, qc_settings=qc,
                    out_dir=folder, cold=cold, layout_path=layout_path, progress=progress,
-                   scheduler=scheduler)
+                   scheduler=scheduler, probes=probes)
     echo(f"quarantine and per-reading QC flags -> {folder}")
+    if probes is not None and "probe_contradicts" in ds:
+        bad = ds["advance"].values[ds["probe_contradicts"].values.astype(bool)]
+        echo(f"probe constraint contradicts the readings at {bad.size} advance(s)"
+             + (f" ({_ranges(bad)}): flagged, not applied" if bad.size else ""))
     n = ds.sizes["advance"]
     if n == 0:
         echo(f"nothing to invert: every advance of {readings_path} is already in {store_path}")
@@ -690,13 +711,17 @@ def reach_job(layout_path: str | Path, out_dir: str | Path, *, contrast: float =
 def report_job(store_path: str | Path, out_dir: str | Path, *,
                settings_path: str | Path | None = None,
                materials_path: str | Path | None = None, shift: str | None = None,
-               echo: Callable[[str], None] | None = None) -> int:
+               echo: Callable[[str], None] | None = None,
+               probes_path: str | Path | None = None) -> int:
     """``tbminv report STORE --out DIR [--settings S] [--materials T] [--shift L]``.
 
     Writes the report and says where each output went. ``settings_path`` gives the ``[ahead]``
     thresholds, ``materials_path`` a site-calibrated material table. A store that cannot be read
     raises :class:`FileNotFoundError` or :class:`~tbminv.inversion.outcome.SectionError`,
-    which the command line reports with exit code 2.
+    which the command line reports with exit code 2. ``probes_path`` adds a probe log (drawn,
+    listed, checked against the contact fit); without ``materials_path`` its site table
+    (:func:`tbminv.results.probecheck.site_material_table`) replaces the handbook ranges and
+    is written to ``DIR/site_materials.toml`` (reusable with ``--materials``).
 
     Returns
     -------
@@ -706,8 +731,16 @@ def report_job(store_path: str | Path, out_dir: str | Path, *,
     echo = echo or _LOG.info
     ahead = AheadSettings.from_toml(settings_path) if settings_path else None
     table = load_material_table(materials_path) if materials_path else None
+    probes = read_probe_log(probes_path) if probes_path else None
+    if probes is not None and table is None:
+        table = site_material_table(probes, open_section(store_path))
+        if table is not None:
+            Path(out_dir).mkdir(parents=True, exist_ok=True)
+            saved = save_material_table(table, Path(out_dir) / "site_materials.toml")
+            echo(f"site material table from {probes_path} -> {saved} (replaces the handbook "
+                 "ranges in this report)")
     for p in write_report(store_path, out_dir, shift=shift, material_table=table,
-                          ahead_settings=ahead):
+                          ahead_settings=ahead, probes=probes):
         echo(f"wrote {p}")
     return 0
 

@@ -32,7 +32,9 @@ from pathlib import Path
 from typing import Any
 
 import numpy as np
+import tomli_w
 
+from tbminv.cache import atomic_write_text
 from tbminv.tomlfile import read_toml
 
 _LOG = logging.getLogger(__name__)
@@ -264,6 +266,23 @@ def load_material_table(path: str | Path) -> MaterialTable:
     return MaterialTable(tuple(classes), source)
 
 
+def save_material_table(table: MaterialTable, path: str | Path) -> Path:
+    """Write a material table as TOML (the format :func:`load_material_table` reads), atomically.
+
+    Parameters
+    ----------
+    table : MaterialTable
+    path : str or Path
+        A ``.toml`` file.
+    """
+    doc = {"source": table.source,
+           "material": [{"name": c.name, "low_ohmm": float(c.low_ohmm),
+                         "high_ohmm": float(c.high_ohmm),
+                         **({"group": c.group} if c.group else {}),
+                         **({"note": c.note} if c.note else {})} for c in table.classes]}
+    return atomic_write_text(Path(path), tomli_w.dumps(doc))
+
+
 # --------------------------------------------------------------------------- Archie's law
 
 
@@ -348,5 +367,6 @@ def candidate_table_rows(values_ohmm: Iterable[tuple[str, float, float | None]],
 
 __all__ = ["MaterialClass", "MaterialTable", "MaterialTableError", "Candidate", "HANDBOOK_TABLE",
            "HANDBOOK_SOURCE", "candidates", "describe_candidates", "load_material_table",
+           "save_material_table",
            "formation_factor", "archie_resistivity", "archie_porosity", "archie_saturation",
            "archie_water_resistivity", "candidate_table_rows"]

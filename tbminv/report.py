@@ -5,6 +5,8 @@ face positions, the section ahead of the face at the last advance, the ahead pro
 band, the changes detected (distance, contrast interval, calibrated false-alarm probability,
 every part of an ambiguous distance answer) and candidate materials, the inversion fit per
 advance, the QC summary (if given) and the provenance (input hashes, settings, versions).
+With a probe log (``probes``), the probes are drawn on the moving section and the ahead
+profile and a page lists them and checks them against the contact fit (:func:`_probe_hook`).
 """
 
 from __future__ import annotations
@@ -28,7 +30,10 @@ import tbminv
 from tbminv.gimli import versions
 from tbminv.materials import HANDBOOK_TABLE, MaterialTable, candidate_table_rows
 from tbminv.plots import section as figures
+from tbminv.plots.probes import draw_probes_on_profile, draw_probes_on_section
+from tbminv.readings.probes import ProbeLog, probe_rows_text
 from tbminv.results.ahead import AheadSettings, AheadSummary, detect_changes
+from tbminv.results.probecheck import check_probe_contacts, probe_materials_beyond
 from tbminv.results.section import SectionError, clean_advances
 from tbminv.results.store import open_section
 
@@ -147,7 +152,8 @@ def _provenance_lines(store: Path, ds: xr.Dataset, shift: str) -> list[str]:
 def write_report(store_path: str | Path, out_dir: str | Path,
                  qc_summary: Mapping[str, Any] | None = None, *, shift: str | None = None,
                  material_table: MaterialTable | None = None,
-                 ahead_settings: AheadSettings | None = None) -> list[Path]:
+                 ahead_settings: AheadSettings | None = None,
+                 probes: ProbeLog | None = None) -> list[Path]:
     """Write the shift report of a section store.
 
     Parameters
@@ -164,6 +170,9 @@ def write_report(store_path: str | Path, out_dir: str | Path,
         Site-calibrated table instead of the handbook one.
     ahead_settings : AheadSettings, optional
         Thresholds of the change detection.
+    probes : ProbeLog, optional
+        Probe log: drawn on the moving section and the ahead profile, listed and checked
+        against the contact fit on a page of its own (:func:`_probe_hook`).
 
     Returns
     -------
@@ -239,6 +248,7 @@ def write_report(store_path: str | Path, out_dir: str | Path,
         ("Settings (first lines)", settings_text or ["(none stored)"]),
     ])
 
+    probe_pages = _probe_hook(probes, figs, upto, summary, table) if probes else []
     pdf_path = out / f"report_{safe}.pdf"
     written: list[Path] = []
     meta = {"Title": f"tbminv shift report {shift}", "Author": "tbminv",
@@ -246,7 +256,8 @@ def write_report(store_path: str | Path, out_dir: str | Path,
     with matplotlib.rc_context({"pdf.fonttype": 42}):
         tmp_pdf = pdf_path.with_name(pdf_path.name + ".part")
         with PdfPages(tmp_pdf, metadata=meta) as pdf:
-            pages = cover + [f for _, f in figs[:3]] + changes_pages + [figs[3][1]] + prov_pages
+            pages = (cover + [f for _, f in figs[:3]] + changes_pages + probe_pages
+                     + [figs[3][1]] + prov_pages)
             for page in pages:
                 pdf.savefig(page)
         tmp_pdf.replace(pdf_path)
@@ -257,6 +268,29 @@ def write_report(store_path: str | Path, out_dir: str | Path,
             written.append(png)
     _LOG.info("report of shift %s: %s", shift, pdf_path)
     return written
+
+
+# ------------------------------------------------------------------ face probes (hook)
+def _probe_hook(probes: ProbeLog, figs: list[tuple[str, Figure]], upto: xr.Dataset,
+                summary: AheadSummary, table: MaterialTable) -> list[Figure]:
+    """Draw the probes on the section and profile figures; the pages of the probe check."""
+    draw_probes_on_section(dict(figs)["section"].axes[0], probes)
+    draw_probes_on_profile(dict(figs)["profile"].axes[0], probes,
+                           float(upto["face_chainage_m"].values[-1]))
+    agreements = check_probe_contacts(probes, upto)
+    beyond = probe_materials_beyond(agreements, summary)
+    return _text_pages("Face probes", [
+        ("Probe log", [f"{probes.source}: {len(probes.rows)} of {probes.rows_read} rows kept "
+                       f"({len(probes.quarantine)} quarantine entries)"]
+         + probe_rows_text(probes)),
+        ("Probed contacts against the readings", [a.text for a in agreements]
+         or ["the probes log no change of material"]),
+        ("Material beyond a change the probes confirm", beyond or [
+            "no change ahead is confirmed by a probe"]),
+        ("Material table", [f"candidate materials on the previous page from: {table.source}"]),
+        ("Caution", ["A probe sees a line, not the face: between probes and beyond their "
+                     "reach the ground is known only from the readings. " + tbminv.CAUTION]),
+    ])
 
 
 __all__ = ["write_report"]

@@ -71,7 +71,7 @@ import pickle
 import subprocess
 import sys
 import tempfile
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
@@ -124,6 +124,11 @@ class ContactFitSettings:
         1e-6 takes only numerical zeros: near-null readings above it respond strongly to a
         contact ahead and stay in (the demo drive has 8 of 120 at 6e-5 to 8e-4 of the median;
         leaving them out at 1e-3 moved its fitted distances by up to 3 m).
+    probe_contradiction_level : float
+        A chainage constraint (probe log, :mod:`tbminv.inversion.probefit`) contradicts the
+        readings when the chi-squared it adds to the best fit, scaled by the reduced
+        chi-squared of the free fit, exceeds the chi-squared quantile of this level for one
+        parameter (0.99: 6.63); it is then flagged and not applied.
     """
 
     contrasts: tuple[float, ...] = (0.001, 0.01, 0.05, 0.1, 0.25, 0.5, 1.0, 2.0, 4.0, 10.0, 20.0,
@@ -137,6 +142,7 @@ class ContactFitSettings:
     fine_contrasts: int = 121
     shared_resistivity: bool = True
     null_fraction: float = 1e-6
+    probe_contradiction_level: float = 0.99
 
 
 @dataclass
@@ -399,6 +405,9 @@ class ContactEstimate:
     p_false_alarm: float = math.nan
     reflection_k: float = math.nan
     contrast_open: bool = False
+    probe_constrained: bool = False
+    probe_misfit_added: float = math.nan
+    probe_contradicts: bool = False
 
     def as_dict(self) -> dict[str, Any]:
         """Plain dictionary."""
@@ -547,9 +556,13 @@ class ContactFitter:
         behind = np.arange(first, cur - 0.5 * step, step)
         return np.concatenate([behind, ahead])
 
-    def joint_chi2(self, likelihoods: Sequence[Likelihood], faces_m: Sequence[float]
+    def joint_chi2(self, likelihoods: Sequence[Likelihood], faces_m: Sequence[float],
+                   extra_chainages_m: np.ndarray | None = None
                    ) -> tuple[np.ndarray, np.ndarray, float, float, np.ndarray]:
         """chi2 of the window over (contrast, chainage) and of the homogeneous model.
+
+        ``extra_chainages_m`` are added to :meth:`chainage_grid` where they lie inside it
+        (e.g. the knots of a chainage constraint, so that it is resolved finer than the grid).
 
         Returns
         -------
@@ -562,6 +575,10 @@ class ContactFitter:
         d = self.fine_d
         dmin, dmax = d[0], d[-1]
         x_grid = self.chainage_grid(faces)
+        if extra_chainages_m is not None:
+            extra = np.asarray(extra_chainages_m, float)
+            extra = extra[(extra > x_grid[0]) & (extra < x_grid[-1])]
+            x_grid = np.unique(np.concatenate([x_grid, extra]))
         nc = self.fine_c.size
         log_c = np.log(self.fine_c)[:, None]
         total = np.zeros((nc, x_grid.size))
@@ -610,19 +627,40 @@ class ContactFitter:
         lrho[c1, :] = log_rho0
         return x_grid, total, float(total0), float(log_rho0), lrho
 
-    def estimate(self, likelihoods: Sequence[Likelihood], faces_m: Sequence[float]
-                 ) -> ContactEstimate:
-        """Joint estimate over advances (the last one is the current face); see the module."""
+    def estimate(self, likelihoods: Sequence[Likelihood], faces_m: Sequence[float],
+                 penalty: Callable[[np.ndarray], np.ndarray] | None = None) -> ContactEstimate:
+        """Joint estimate over advances (the last one is the current face); see the module.
+
+        ``penalty`` (optional) maps contact chainages (m) to a chi-squared added to the fit: a
+        constraint from outside the readings (a probe log); its ``knots_m`` attribute, if any,
+        adds chainages to the fit's grid. The evidence measures
+        (``lr_statistic``, ``p_false_alarm``, ``found``) stay those of the readings alone; the
+        best point and intervals come from the constrained fit unless the constraint
+        contradicts the readings (``probe_contradicts``, see
+        ``ContactFitSettings.probe_contradiction_level``), when the readings' own answer is
+        kept. ``probe_misfit_added`` is the chi-squared the constraint adds, scaled.
+        """
         s = self.settings
         faces = np.asarray(faces_m, float)
         cur = float(faces[-1])
-        x_grid, total, total0, log_rho0, lrho = self.joint_chi2(likelihoods, faces)
+        x_grid, total, total0, log_rho0, lrho = self.joint_chi2(
+            likelihoods, faces, getattr(penalty, "knots_m", None))
         n_data = int(sum(lik.n_data for lik in likelihoods))
-        ci, bj = np.unravel_index(int(np.argmin(total)), total.shape)
-        chi2_min = float(total[ci, bj])
+        chi2_free = float(total.min())
         n_par = 3 + (0 if s.shared_resistivity else len(likelihoods) - 1)
         dof = max(1, n_data - n_par)
-        scale = max(1.0, chi2_min / dof)
+        scale = max(1.0, chi2_free / dof)
+        probe: dict[str, Any] = {}
+        if penalty is not None:
+            constrained = total + np.asarray(penalty(x_grid), float)[None, :]
+            added = (float(constrained.min()) - chi2_free) / scale
+            contradicts = bool(added > chi2_dist.ppf(s.probe_contradiction_level, 1))
+            probe = dict(probe_constrained=not contradicts, probe_misfit_added=added,
+                         probe_contradicts=contradicts)
+            if not contradicts:
+                total = constrained
+        ci, bj = np.unravel_index(int(np.argmin(total)), total.shape)
+        chi2_min = float(total[ci, bj])
         delta = float(chi2_dist.ppf(s.confidence, 1)) * scale
         level = chi2_min + delta
         # distance: every part of the profile-likelihood set
@@ -640,7 +678,7 @@ class ContactFitter:
                         or bj in (0, last))
         contrast_open = bool(in_c[0] == 0 or in_c[-1] == nc_last)
         ambiguous = len(parts) > 1
-        stat = max(0.0, (total0 - chi2_min) / scale)
+        stat = max(0.0, (total0 - chi2_free) / scale)
         p_fa = self.calibration.p_false_alarm(stat, len(likelihoods))
         contrast = float(self.fine_c[ci])
         found = bool(p_fa <= s.p_threshold and self.fine_k[ci] != 0.0)
@@ -654,9 +692,12 @@ class ContactFitter:
             notes.append("contrast interval open: it reaches a table end of the contrast")
         if ambiguous:
             notes.append(f"{len(parts)} separate distance ranges fit the data")
+        if probe.get("probe_contradicts"):
+            notes.append(f"probe constraint contradicts the readings (adds chi-squared "
+                         f"{probe['probe_misfit_added']:.1f}): not applied")
         common = dict(note="; ".join(notes), contrast_lo=c_lo, contrast_hi=c_hi,
                       at_bound=at_bound, ambiguous=ambiguous, lr_statistic=stat,
-                      p_false_alarm=p_fa, contrast_open=contrast_open)
+                      p_false_alarm=p_fa, contrast_open=contrast_open, **probe)
         if not found:
             rho0 = float(math.exp(log_rho0))
             return ContactEstimate(False, math.nan, math.nan, math.nan, math.nan, 1.0, rho0,
@@ -669,7 +710,8 @@ class ContactFitter:
                                reflection_k=float(self.fine_k[ci]), **common)
 
     def fit_drive(self, r_obs: np.ndarray, rel_error: np.ndarray, faces_m: Sequence[float],
-                  use: np.ndarray | None = None, *, skip_unusable: bool = False
+                  use: np.ndarray | None = None, *, skip_unusable: bool = False,
+                  penalties: Sequence[Callable[[np.ndarray], np.ndarray] | None] | None = None
                   ) -> list[ContactEstimate | None]:
         """Running joint fit along a drive.
 
@@ -683,6 +725,9 @@ class ContactFitter:
         skip_unusable : bool
             An advance with fewer than 3 usable readings gets ``None`` and is left out of the
             windows of the others (default: :class:`ValueError`).
+        penalties : sequence, optional
+            Per advance, a chainage constraint for its joint fit or None (see
+            :meth:`estimate`).
         """
         liks: list[Likelihood | None] = []
         for k in range(len(faces_m)):
@@ -702,7 +747,8 @@ class ContactFitter:
             k0 = max(0, k - self.settings.window + 1)
             win = [(lik, f) for lik, f in zip(liks[k0:k + 1], faces_m[k0:k + 1])
                    if lik is not None]
-            out.append(self.estimate([w[0] for w in win], [w[1] for w in win]))
+            out.append(self.estimate([w[0] for w in win], [w[1] for w in win],
+                                     None if penalties is None else penalties[k]))
         return out
 
 

@@ -75,6 +75,7 @@ from tbminv.inversion.outcome import (
     AdvanceResult,
     ContactFit,
 )
+from tbminv.inversion.probefit import advance_penalties, probe_reference
 from tbminv.inversion.settings import (
     SCHEDULER_NEEDS_COLD,
     TABLE_MIN_POSITIONS,
@@ -84,6 +85,7 @@ from tbminv.inversion.settings import (
 from tbminv.layout import Layout
 from tbminv.readings.advance import AdvanceData
 from tbminv.readings.errorfloor import with_error_floor
+from tbminv.readings.probes import ProbeLog
 
 _LOG = logging.getLogger(__name__)
 
@@ -119,8 +121,11 @@ class DriveInverter:
         self.grid_sha256 = grid_signature(self.grid.x_nodes, self.grid.r_nodes, self.grid.keep)
         self.last_run: DriveHistory | None = None
         self.stage_seconds: dict[str, float] = {}
-        self.surface_method = "table" if self.settings.surface_method == "table" else "direct"
         """Wall time of the last :meth:`run` by stage, s (surface factors, images, ...)."""
+        self.surface_method = "table" if self.settings.surface_method == "table" else "direct"
+        self.probes: ProbeLog | None = None
+        """Probe log constraining the contact fit and, where it gives resistivities, the
+        images (:mod:`tbminv.inversion.probefit`)."""
 
     def _clock(self, stage: str, t0: float) -> None:
         self.stage_seconds[stage] = self.stage_seconds.get(stage, 0.0) + time.perf_counter() - t0
@@ -224,7 +229,8 @@ class DriveInverter:
         op = self.operator(adv.face_chainage_m, adv.cutterhead_deg)
         k = self.geometric_factors(adv.face_chainage_m, adv.cutterhead_deg,
                                    self.reference_resistivity(adv))
-        img = invert_image(op, adv, k, self.settings, start, reference)
+        cells = probe_reference(self.grid, self.probes, adv.face_chainage_m, adv.time)
+        img = invert_image(op, adv, k, self.settings, start, reference, cells)
         _LOG.info("advance %d at %.2f m: chi2 %.2f after %d iterations (%s), %.1f s",
                   adv.advance, adv.face_chainage_m, img.chi2, img.iterations,
                   img.stop_reason, img.time_s)
@@ -427,7 +433,8 @@ class DriveInverter:
                 raise InversionError(f"--scheduler {scheduler}: cannot connect ({exc})") from None
         try:
             futures = [client.submit(_remote_image, self.layout, self.settings,
-                                     self.rho_ref_ohmm, adv, pure=False) for adv in data]
+                                     self.rho_ref_ohmm, adv, self.probes, pure=False)
+                       for adv in data]
             index = {f.key: i for i, f in enumerate(futures)}
             out: list[Any] = [None] * len(data)
             for fut in tqdm(as_completed(futures), total=len(futures), disable=not progress,
@@ -444,6 +451,15 @@ class DriveInverter:
         """``a/b/m/n`` labels (``-`` for a pole) of the readings the contact fit uses."""
         return ["/".join(x or "-" for x in q.labels())
                 for q in self._machine_only_layout().measurements]
+
+    def contact_readings(self, data: Sequence[AdvanceData]
+                         ) -> tuple[np.ndarray, np.ndarray, list[float]]:
+        """What the contact fit uses: readings between electrodes on the machine, per advance.
+
+        Returns ``(r_ohm, rel_error, faces_m)``: arrays (n_advances, n_contact_readings) in
+        the order of :meth:`contact_labels`, and the face chainages.
+        """
+        return self._contact_data(data)
 
     def _contact_data(self, data: Sequence[AdvanceData]
                       ) -> tuple[np.ndarray, np.ndarray, list[float]]:
@@ -485,7 +501,10 @@ class DriveInverter:
                 n_prior = prior.n_advances
                 r, e = np.vstack([rp, r]), np.vstack([ep, e])
                 faces = [float(f) for f in prior.faces_m] + list(faces)
-            est = fitter.fit_drive(r, e, faces, skip_unusable=True)[n_prior:]
+            penalties = [None] * n_prior + advance_penalties(self.probes,
+                                                             [d.time for d in data])
+            est = fitter.fit_drive(r, e, faces, skip_unusable=True,
+                                   penalties=penalties)[n_prior:]
         except Exception as exc:  # noqa: BLE001 - degrade: the images stand without it
             _LOG.warning("contact fit failed for all %d advances (images kept): %s: %s",
                          len(data), type(exc).__name__, exc)
@@ -563,7 +582,7 @@ _WORKER_INVERTERS: dict[str, DriveInverter] = {}
 
 
 def _remote_image(layout: Layout, settings: InversionSettings, rho_ref_ohmm: float,
-                  adv: AdvanceData) -> ImageResult:
+                  adv: AdvanceData, probes: ProbeLog | None = None) -> ImageResult:
     """Cold image inversion of one advance on a dask worker.
 
     The worker keeps one :class:`DriveInverter` per layout and settings, so its mesh, operator
@@ -575,6 +594,7 @@ def _remote_image(layout: Layout, settings: InversionSettings, rho_ref_ohmm: flo
         _WORKER_INVERTERS.clear()
         inv = _WORKER_INVERTERS[key] = DriveInverter(layout, settings)
     inv.rho_ref_ohmm = rho_ref_ohmm
+    inv.probes = probes
     return inv.invert_advance(adv)
 
 

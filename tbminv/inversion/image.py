@@ -14,7 +14,7 @@ from scipy.interpolate import NearestNDInterpolator, RegularGridInterpolator
 
 from tbminv.gimli import pg
 from tbminv.inversion.grid import ParameterGrid
-from tbminv.inversion.operator import DriveOperator, make_pg_modelling
+from tbminv.inversion.operator import DriveOperator, ReferencedModelling, make_pg_modelling
 from tbminv.inversion.outcome import POSTPROCESS_DOI_FAILED
 from tbminv.inversion.settings import InversionError, InversionSettings
 from tbminv.readings.advance import AdvanceData
@@ -23,6 +23,15 @@ _LOG = logging.getLogger(__name__)
 
 
 # ------------------------------------------------------------------------ one advance
+@dataclass(frozen=True)
+class CellReference:
+    """Reference values of parameter cells: ``index`` (int), ``values_ohmm``, ``rel_error``."""
+
+    index: np.ndarray
+    values_ohmm: np.ndarray
+    rel_error: np.ndarray
+
+
 @dataclass
 class ImageResult:
     """Outcome of one image inversion (parameter space)."""
@@ -48,7 +57,8 @@ class ImageResult:
 
 def invert_image(op: DriveOperator, data: AdvanceData, k: np.ndarray,
                  settings: InversionSettings, start_model: np.ndarray | None = None,
-                 reference_model: np.ndarray | None = None) -> ImageResult:
+                 reference_model: np.ndarray | None = None,
+                 cell_reference: CellReference | None = None) -> ImageResult:
     """Invert one advance's apparent resistivities on the parameter grid.
 
     Parameters
@@ -62,6 +72,11 @@ def invert_image(op: DriveOperator, data: AdvanceData, k: np.ndarray,
         Starting resistivity per parameter cell, ohm-m (default: median apparent resistivity).
     reference_model : ndarray, optional
         Regularise the change from this model (time-lapse mode); it is also the start.
+    cell_reference : CellReference, optional
+        Reference values of some parameter cells with their relative errors (probed
+        stretches, :func:`tbminv.inversion.probefit.probe_reference`), appended to the data
+        (:class:`tbminv.inversion.operator.ReferencedModelling`); ``chi2`` and ``rrms_percent``
+        then count them as data.
     """
     t0 = time.perf_counter()
     rhoa = k * data.r_ohm
@@ -78,6 +93,10 @@ def invert_image(op: DriveOperator, data: AdvanceData, k: np.ndarray,
     y = rhoa[sel]
     err = data.rel_error[sel]
     med = float(np.median(y))
+    y_all, err_all = y, err
+    if cell_reference is not None:
+        y_all = np.concatenate([y, cell_reference.values_ohmm])
+        err_all = np.concatenate([err, cell_reference.rel_error])
     if start_model is None:
         start_model = np.full(op.grid.n_param, med)
     start_model = np.clip(start_model, settings.lower_ohmm * 1.01, settings.upper_ohmm * 0.99)
@@ -85,6 +104,8 @@ def invert_image(op: DriveOperator, data: AdvanceData, k: np.ndarray,
     def run(lam: float, factor: float, start: np.ndarray, max_iter: int,
             reference: np.ndarray | None = None) -> tuple[Any, np.ndarray]:
         fop = make_pg_modelling(op, sel, k[sel], data.cutterhead_deg)
+        if cell_reference is not None:
+            fop = ReferencedModelling(fop, cell_reference.index)
         inv = pg.Inversion(fop=fop, verbose=False)
         inv.dataTrans = pg.trans.TransLog()
         inv.modelTrans = pg.trans.TransLogLU(settings.lower_ohmm, settings.upper_ohmm)
@@ -92,7 +113,7 @@ def invert_image(op: DriveOperator, data: AdvanceData, k: np.ndarray,
         if reference is not None:
             kw["isReference"] = True
             start = reference
-        model = inv.run(pg.Vector(y), pg.Vector(err), lam=lam, lambdaFactor=factor,
+        model = inv.run(pg.Vector(y_all), pg.Vector(err_all), lam=lam, lambdaFactor=factor,
                         startModel=pg.Vector(start), maxIter=max_iter,
                         dPhi=settings.min_dphi_percent, stopAtChi1=True, verbose=False, **kw)
         return inv, np.asarray(model, float)
@@ -136,6 +157,8 @@ def invert_image(op: DriveOperator, data: AdvanceData, k: np.ndarray,
         reason, converged = (f"objective improved by less than {settings.min_dphi_percent} %",
                              chi2 <= settings.chi2_flag)
     response = np.asarray(inv.response, float) if hasattr(inv, "response") else None
+    if response is not None and response.size == y_all.size:
+        response = response[: y.size]     # readings first, then the cell references
     if response is None or response.size != y.size:
         response = k[sel] * op.response(model, data.cutterhead_deg)[sel]
     # coverage from the Jacobian at the final model
@@ -196,4 +219,4 @@ def shift_model(grid: ParameterGrid, model: np.ndarray, advance_m: float) -> np.
     return np.exp(interp(pts))
 
 
-__all__ = ["ImageResult", "invert_image", "shift_model"]
+__all__ = ["CellReference", "ImageResult", "invert_image", "shift_model"]

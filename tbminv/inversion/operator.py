@@ -154,4 +154,45 @@ def make_pg_modelling(op: DriveOperator, sel: np.ndarray, k: np.ndarray,
                           mapping=op.P)
 
 
-__all__ = ["ImageModelling", "DriveOperator", "make_pg_modelling"]
+class ReferencedModelling(pg.Modelling):
+    """An image operator with reference values of some parameters appended as data.
+
+    Prior information as data (Tarantola 2005, *Inverse Problem Theory*, SIAM, sec. 3.2): the
+    response is the base operator's readings followed by the model values of the referenced
+    parameters (ohm-m), whose Jacobian rows are unit rows; the inversion weighs them with
+    their stated relative errors like readings.
+
+    Parameters
+    ----------
+    base : ImageModelling
+    index : numpy.ndarray of int
+        Referenced parameters.
+    """
+
+    def __init__(self, base: ImageModelling, index: np.ndarray) -> None:
+        super().__init__()
+        self.base = base
+        self.index = np.asarray(index, int)
+        self.n_base = int(base.select.size)
+        self.setMesh(base.grid.mesh)
+        self._jac = pg.Matrix(self.n_base + self.index.size, base.grid.n_param)
+        self.setJacobian(self._jac)
+
+    def response(self, model: Any) -> Any:
+        """Readings of the base operator, then the referenced model values."""
+        r = np.asarray(self.base.response(model), float)
+        return pg.Vector(np.concatenate([r, np.asarray(model, float)[self.index]]))
+
+    def createJacobian(self, model: Any) -> None:  # noqa: N802 - pyGIMLi's name
+        """The base Jacobian, then unit rows of the referenced parameters."""
+        self.base.createJacobian(model)
+        for i in range(self.n_base):
+            self._jac[i] = self.base._jac[i]
+        unit = np.zeros(self.base.grid.n_param)
+        for j, p in enumerate(self.index):
+            unit[:] = 0.0
+            unit[p] = 1.0
+            self._jac[self.n_base + j] = pg.Vector(unit)
+
+
+__all__ = ["ImageModelling", "DriveOperator", "make_pg_modelling", "ReferencedModelling"]

@@ -72,6 +72,13 @@ class ContactFit:
     lr_statistic : float
         The likelihood-ratio statistic whose tail probability is ``p_no_contact``
         (dimensionless; NaN: not computed, e.g. results written before it existed).
+    probe_constrained : bool
+        A probe log constrained the distance (:mod:`tbminv.inversion.probefit`).
+    probe_misfit_added : float
+        Chi-squared the probe constraint adds to the best fit, scaled by the reduced
+        chi-squared (dimensionless; NaN: no probe constraint for this advance).
+    probe_contradicts : bool
+        The probe constraint contradicts the readings (flagged, not applied).
     """
 
     ahead_m: float
@@ -92,6 +99,9 @@ class ContactFit:
     parts_m: tuple[tuple[float, float], ...] = ()
     lr_statistic: float = math.nan
     contrast_open: bool = False
+    probe_constrained: bool = False
+    probe_misfit_added: float = math.nan
+    probe_contradicts: bool = False
 
     @classmethod
     def from_estimate(cls, est: Any, interval_level: float = 0.95) -> ContactFit:
@@ -122,7 +132,10 @@ class ContactFit:
             parts_m=tuple((float(a), float(b)) for a, b in getattr(est, "parts_m", ()) or ())
             if found else (),
             lr_statistic=get("lr_statistic"),
-            contrast_open=bool(getattr(est, "contrast_open", False)) if found else False)
+            contrast_open=bool(getattr(est, "contrast_open", False)) if found else False,
+            probe_constrained=bool(getattr(est, "probe_constrained", False)),
+            probe_misfit_added=get("probe_misfit_added"),
+            probe_contradicts=bool(getattr(est, "probe_contradicts", False)))
 
     @property
     def found(self) -> bool:

@@ -11,7 +11,8 @@ section-store contract (variables ``resistivity``, ``conductivity``, ``coverage`
 ``resistivity_beyond``, ``contact_contrast`` with ``contact_contrast_lo``/``_hi``,
 ``contact_at_bound``, ``contact_contrast_open``, ``contact_ambiguous``,
 ``contact_part_lo_m``/``_hi_m``,
-``contact_lr_statistic``) plus a coverage / depth-of-investigation mask (``covered``), fit flags
+``contact_lr_statistic``, ``probe_misfit_added``, ``probe_contradicts``) plus a coverage /
+depth-of-investigation mask (``covered``), fit flags
 (``fit_flag``), shift labels (``shift``) and CF-1.8 / provenance attributes.
 
 The store is one NetCDF-4 file (h5netcdf engine). :func:`append_shift` reads it fully, drops
@@ -368,6 +369,14 @@ def build_section(results: Sequence[AdvanceResult], layout_text: str, settings_t
         "contact_part_hi_m": (("advance", "contact_part"), parts[..., 1], _attrs(
             "upper end of a part of the contact distance set", "m",
             comment="ahead of the face; NaN: no such part, or open beyond reach")),
+        "probe_misfit_added": (da, contact_field("probe_misfit_added"), _attrs(
+            "chi-squared the probe constraint adds to the contact fit", "1",
+            comment="scaled by the reduced chi-squared of the free fit; NaN: no probe "
+                    "constraint for the advance (tbminv.inversion.probefit)")),
+        "probe_contradicts": (da, contact_flag("probe_contradicts"), _attrs(
+            "probe constraint contradicts the readings", None,
+            flag_values=np.array([0, 1], np.int8), flag_meanings="agrees contradicts",
+            comment="1: the constraint was flagged and not applied to the contact fit")),
         "shift": (da, np.array([shift] * adv.size, dtype=object), _attrs("shift label")),
         "inputs_sha256": (da, np.array([inputs_sha256] * adv.size, dtype=object),
                           _attrs("SHA-256 of the inputs of the advance")),

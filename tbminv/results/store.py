@@ -242,7 +242,7 @@ def append_shift(store_path: str | os.PathLike[str], ds: xr.Dataset, shift: str)
         merged.attrs["shifts"] = " ".join(sorted(provenance))
         for name in ("covered", "fit_flag", "postprocess_flag", "converged", "iterations",
                      "n_data", "n_used", "contact_at_bound", "contact_ambiguous",
-                     "contact_contrast_open"):
+                     "contact_contrast_open", "probe_contradicts"):
             if name in merged and merged[name].dtype.kind == "f":  # concat may promote
                 merged[name] = merged[name].fillna(0).astype(ds[name].dtype)
         for name in list(merged.data_vars):  # text missing in one part (older stores): empty
