@@ -53,6 +53,7 @@ from tbminv.readings.advance import (
 )
 from tbminv.readings.probes import ProbeLog, read_probe_log
 from tbminv.readings.qc import QCResult, QCSettings, _json, summary_text
+from tbminv.readings.qcadvance import qc_per_advance
 from tbminv.readings.reader import Readings
 from tbminv.report import write_report
 from tbminv.results.ahead import AheadSettings
@@ -261,6 +262,11 @@ def run_drive(readings: str | Path | pd.DataFrame | PreparedReadings, layout: La
     t0 = time.perf_counter()
     ds = build_section(results, layout_text, repr(settings.to_dict()), readings_sha)
     ds = add_history(ds, inverter.last_run)
+    synthetic = prepared.readings.synthetic
+    qc_vars = qc_per_advance(prepared.qc, model_error_floor=settings.model_error_floor,
+                             synthetic=synthetic)
+    ds = ds.merge(qc_vars.reindex(advance=ds["advance"].values), combine_attrs="drop_conflicts")
+    ds.attrs["synthetic"] = int(synthetic)
     append_shift(store_path, ds, shift=label)
     stages = {"readings and QC": t_readings, **inverter.stage_seconds,
               "store": time.perf_counter() - t0}

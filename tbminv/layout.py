@@ -16,6 +16,7 @@ from __future__ import annotations
 import dataclasses
 import math
 import re
+import tomllib
 from collections.abc import Iterable, Mapping
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -629,6 +630,23 @@ def load_layout(path: str | Path) -> Layout:
 _PAIR = re.compile(r'^\s*[A-Za-z_][\w-]*\s*=\s*("[^"]*"|\'[^\']*\'|[^"\';#]+)\s*$')
 
 
+def layout_document(text: str) -> dict[str, Any]:
+    """Parse layout text (as a layout file holds it, e.g. the store's ``layout_text``).
+
+    Several ``key = value`` pairs on one line, separated by ``;``, are accepted as in
+    :func:`load_layout`.
+
+    Raises
+    ------
+    tomllib.TOMLDecodeError
+        If the text is not TOML even with that allowance.
+    """
+    try:
+        return tomllib.loads(text)
+    except tomllib.TOMLDecodeError:
+        return tomllib.loads(_split_semicolon_pairs(text))
+
+
 def _split_semicolon_pairs(text: str) -> str:
     """Put several ``key = value`` pairs separated by ``;`` on one line each.
 
@@ -672,5 +690,6 @@ def demo_layout_path() -> Path:
 
 
 __all__ = ["Machine", "Tunnel", "Electrode", "Measurement", "Layout", "LayoutError",
+           "layout_document",
            "load_layout", "generate_protocol", "machine_to_world", "world_to_machine",
            "demo_layout_path", "ELECTRODE_KINDS", "PROTOCOL_GENERATORS"]

@@ -347,6 +347,25 @@ def archie_water_resistivity(resistivity_ohmm: Any, porosity: Any, saturation: A
     return rho * sw**n / formation_factor(porosity, a, m)
 
 
+def classify_values(values_ohmm: Iterable[tuple[str, float, float | None]],
+                    table: MaterialTable | None = None
+                    ) -> list[tuple[str, float, float | None, list[Candidate]]]:
+    """Candidates of labelled resistivities or intervals.
+
+    ``values_ohmm`` holds (label, rho or interval low, interval high or None), ohm-m; entries
+    without a positive finite value are left out, a high end below the low end is dropped.
+    Returns (label, low, high or None, candidates) per kept entry.
+    """
+    out = []
+    for label, lo, hi in values_ohmm:
+        if not (lo is not None and np.isfinite(lo) and lo > 0):
+            continue
+        if hi is not None and not (np.isfinite(hi) and hi >= lo):
+            hi = None
+        out.append((label, float(lo), hi, candidates(lo, table, hi_ohmm=hi)))
+    return out
+
+
 def candidate_table_rows(values_ohmm: Iterable[tuple[str, float, float | None]],
                          table: MaterialTable | None = None) -> list[tuple[str, str, str]]:
     """Rows (label, value text, candidate names) for a report table.
@@ -354,12 +373,7 @@ def candidate_table_rows(values_ohmm: Iterable[tuple[str, float, float | None]],
     ``values_ohmm`` holds (label, rho or interval low, interval high or None).
     """
     rows = []
-    for label, lo, hi in values_ohmm:
-        if not (lo is not None and np.isfinite(lo) and lo > 0):
-            continue
-        if hi is not None and not (np.isfinite(hi) and hi >= lo):
-            hi = None
-        found = candidates(lo, table, hi_ohmm=hi)
+    for label, lo, hi, found in classify_values(values_ohmm, table):
         val = f"{lo:.3g}" if hi is None else f"{lo:.3g}-{hi:.3g}"
         rows.append((label, f"{val} ohm-m", ", ".join(c.name for c in found) or "none"))
     return rows
@@ -369,4 +383,4 @@ __all__ = ["MaterialClass", "MaterialTable", "MaterialTableError", "Candidate", 
            "HANDBOOK_SOURCE", "candidates", "describe_candidates", "load_material_table",
            "save_material_table",
            "formation_factor", "archie_resistivity", "archie_porosity", "archie_saturation",
-           "archie_water_resistivity", "candidate_table_rows"]
+           "archie_water_resistivity", "classify_values", "candidate_table_rows"]

@@ -16,7 +16,7 @@ from pypdf import PdfReader
 import tbminv
 from tbminv.cli import main
 from tbminv.plots import section as figures
-from tbminv.report import write_report
+from tbminv.report import cautions, write_report
 from tbminv.results.store import append_shift, open_section
 from tests.helpers import make_section
 
@@ -35,21 +35,23 @@ def _words(text):
 
 
 def test_report_pdf_renders_and_contains_caution(store, tmp_path):
-    qc = {"readings used": 1180, "readings quarantined": 12, "error model b (-)": 0.02}
+    qc = {"error_model_group": "advance", "settings": {"reciprocal_max": 0.1},
+          "error_models": {"7": {"a_ohm": 0.001, "b": 0.02}}}
     paths = write_report(store, tmp_path / "out", qc_summary=qc)
     pdf = paths[0]
     assert pdf.suffix == ".pdf" and pdf.exists()
-    assert {p.suffix for p in paths[1:]} == {".png"} and len(paths) == 5
+    assert [p.suffix for p in paths[1:]] == [".csv"] + [".png"] * 5
     assert all(p.stat().st_size > 1000 for p in paths)
     reader = PdfReader(pdf)
-    assert len(reader.pages) >= 7
+    assert len(reader.pages) >= 10
     text = _words(" ".join(page.extract_text() for page in reader.pages))
     assert _words(tbminv.CAUTION) in text
-    assert "readings quarantined: 12" in text
-    assert "level of concern: firm" in text
+    assert _words(cautions.ELECTRICAL_SAFETY) in text
+    assert "level of concern: FIRM" in text
     assert "Reynolds 2011" in text  # the materials table names its source
-    assert "ohm-m -> clay" in text  # candidate materials listed
-    for key in ("inputs SHA-256", "settings SHA-256", "pyGIMLi 1.6"):
+    assert "reciprocal_max = 0.1" in text   # QC settings as TOML in the appendix
+    assert "[invert]" in text and "lambda = 20.0" in text
+    for key in ("readings SHA-256", "settings SHA-256", "pyGIMLi 1.6"):
         assert key in text
     if shutil.which("pdftoppm") is None:
         pytest.skip("pdftoppm (Debian poppler-utils) not installed")
@@ -111,7 +113,7 @@ def test_report_cli_takes_ahead_settings_and_site_table(store, tmp_path, capsys)
     pdf = next((tmp_path / "o").glob("*.pdf"))
     text = _words(" ".join(p.extract_text() for p in PdfReader(pdf).pages))
     assert "face probes, rings 10-40" in text and "grey silt" in text
-    assert "level of concern: likely" in text
+    assert "level of concern: LIKELY" in text
     settings.write_text("[ahead]\nfirm_advance = 5\n")
     rc = main(["report", str(store), "--out", str(tmp_path / "p"), "--settings", str(settings)])
     err = capsys.readouterr().err
@@ -132,5 +134,5 @@ def test_a_contrast_at_the_fits_bound_names_no_material(tmp_path):
                                                    "contrast_hi": 0.001}), "day-1")
     pdf = write_report(path, tmp_path / "out")[0]
     text = _words(" ".join(page.extract_text() for page in PdfReader(pdf).pages))
-    assert "is the fit's bound, not a value -> not classified" in text
+    assert "0.08 is the fit's bound, not a value" in text and "not classified" in text
     assert "saline groundwater" not in text

@@ -18,6 +18,12 @@ OPTIONAL_NUMERIC_COLUMNS: tuple[str, ...] = ("cutterhead_deg", "stack_n", "volta
 OPTIONAL_COLUMNS: tuple[str, ...] = ("time",) + OPTIONAL_NUMERIC_COLUMNS
 """All optional columns with a meaning."""
 LABEL_COLUMNS: tuple[str, ...] = ("a", "b", "m", "n")
+SYNTHETIC_COLUMN = "synthetic"
+"""Optional pass-through column: ``1`` on the rows of a simulated log (``tbminv simulate``
+writes it); ``0`` or absent: measured readings. Any kept row marked ``1``/``true``/``yes``
+makes the whole log synthetic (:attr:`tbminv.readings.reader.Readings.synthetic`)."""
+SYNTHETIC_TRUE = frozenset({"1", "1.0", "true", "yes"})
+"""Texts of the ``synthetic`` column read as "simulated" (case-insensitive)."""
 QUARANTINE_COLUMNS: tuple[str, ...] = ("file", "line", "field", "value", "reason")
 """Columns of ``quarantine.csv`` (a contract)."""
 ROW_FIELD = "(row)"
@@ -107,4 +113,5 @@ class ReadSummary:
 
 
 __all__ = ["REQUIRED_COLUMNS", "OPTIONAL_NUMERIC_COLUMNS", "OPTIONAL_COLUMNS", "LABEL_COLUMNS",
+           "SYNTHETIC_COLUMN", "SYNTHETIC_TRUE",
            "QUARANTINE_COLUMNS", "ROW_FIELD", "REASONS", "ReadingsError", "ReadSummary"]

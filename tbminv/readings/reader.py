@@ -4,7 +4,8 @@ A readings log has one row per reading. Required columns: ``advance``, ``face_ch
 ``a``, ``b``, ``m``, ``n`` (electrode labels of the layout; ``b`` or ``n`` empty for a pole),
 ``current_a``, ``voltage_v``. Optional: ``time`` (ISO 8601; a time without zone is taken as
 UTC), ``cutterhead_deg``, ``stack_n``, ``voltage_std_v``, ``contact_ohm_a``,
-``contact_ohm_m``. Unknown columns are kept as text and passed through.
+``contact_ohm_m``, ``synthetic`` (1: simulated readings; :attr:`Readings.synthetic`). Unknown
+columns are kept as text and passed through.
 
 Every row that fails validation goes to the quarantine table, one row per failing field, with
 the columns ``file, line, field, value, reason``; ``line`` is the 1-based line in the file
@@ -68,6 +69,8 @@ from tbminv.readings.logformat import (
     REASONS,
     REQUIRED_COLUMNS,
     ROW_FIELD,
+    SYNTHETIC_COLUMN,
+    SYNTHETIC_TRUE,
     ReadingsError,
     ReadSummary,
 )
@@ -109,6 +112,14 @@ class Readings:
     summary: ReadSummary
     extra_columns: tuple[str, ...] = ()
     columns_present: tuple[str, ...] = ()
+
+    @property
+    def synthetic(self) -> bool:
+        """True when the log says its readings were simulated (column ``synthetic``)."""
+        if SYNTHETIC_COLUMN not in self.table:
+            return False
+        vals = self.table[SYNTHETIC_COLUMN].dropna().astype(str).str.strip().str.lower()
+        return bool(vals.isin(SYNTHETIC_TRUE).any())
 
     @property
     def advances(self) -> np.ndarray:

@@ -315,7 +315,8 @@ class AheadSummary:
             lines.append(f"rejected (moves with the machine, slope {r.slope:.2f}): feature about "
                          f"{r.distance_ahead_m:.1f} m ahead, seen in {r.n_advances} advances")
         if self.advances_flagged:
-            lines.append(f"advances left out for their data fit: {self.advances_flagged}")
+            lines.append("advances left out for their data fit: "
+                         + ", ".join(str(a) for a in self.advances_flagged))
         if any(c.source == "contact fit" or "contact fit" in c.source for c in self.changes):
             lines.append("levels: 'likely' and 'firm' need the latest contact fit's "
                          "false-alarm rate (measured on simulated drives without a "

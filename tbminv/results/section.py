@@ -39,7 +39,6 @@ import hashlib
 import logging
 import math
 import os
-import tomllib
 from collections.abc import Sequence
 from dataclasses import dataclass
 from pathlib import Path
@@ -58,6 +57,7 @@ from tbminv.inversion.outcome import (
     AdvanceResult,
     SectionError,
 )
+from tbminv.layout import layout_document
 
 _LOG = logging.getLogger(__name__)
 
@@ -124,9 +124,10 @@ def _interp_grid(r: AdvanceResult, ahead: np.ndarray, radius: np.ndarray,
     return 10.0 ** out if log else out
 
 
-def _machine_attrs(layout_text: str) -> dict[str, float]:
+def machine_attrs(layout_text: str) -> dict[str, float]:
+    """Machine diameter and shield length, m, from layout text (empty if not readable)."""
     try:
-        machine = tomllib.loads(layout_text).get("machine", {})
+        machine = layout_document(layout_text).get("machine", {})
         return {"machine_diameter_m": float(machine["diameter_m"]),
                 "machine_shield_length_m": float(machine["shield_length_m"])}
     except Exception:  # layout text without a readable [machine] table: no outline drawn
@@ -421,7 +422,7 @@ def build_section(results: Sequence[AdvanceResult], layout_text: str, settings_t
         "settings_text": settings_text,
         "settings_sha256": _sha256_text(settings_text),
         "inputs_sha256": inputs_sha256,
-        **_machine_attrs(layout_text),
+        **machine_attrs(layout_text),
     }
     return ds
 
@@ -577,6 +578,7 @@ def hash_files(paths: Sequence[str | os.PathLike[str]]) -> str:
     return h.hexdigest()
 
 
-__all__ = ["FLAG_NOT_CONVERGED", "FLAG_MISFIT_HIGH", "FLAG_MISFIT_LOW", "FLAG_MEANINGS",
+__all__ = ["machine_attrs",
+           "FLAG_NOT_CONVERGED", "FLAG_MISFIT_HIGH", "FLAG_MISFIT_LOW", "FLAG_MEANINGS",
            "STORE_FORMAT", "SectionSettings", "build_section", "world_view", "transverse_dim",
            "shift_advances", "clean_advances", "axis_median_log10", "hash_files"]

@@ -99,7 +99,7 @@ def open_section(path: str | os.PathLike[str]) -> xr.Dataset:
 def _provenance_entry(ds: xr.Dataset) -> dict[str, Any]:
     return {k: ds.attrs.get(k, "") for k in (
         "date_created", "inputs_sha256", "settings_sha256", "settings_text", "layout_sha256",
-        "tbminv_version", "pygimli_version", "pgcore_version")}
+        "tbminv_version", "pygimli_version", "pgcore_version", "synthetic")}
 
 
 def _compatible_rest(store: Path, old: xr.Dataset, shift: str, advances: np.ndarray,
@@ -240,6 +240,9 @@ def append_shift(store_path: str | os.PathLike[str], ds: xr.Dataset, shift: str)
                                      f"shift {shift} written to the store").strip()
         merged.attrs["provenance_by_shift"] = json.dumps(provenance, sort_keys=True)
         merged.attrs["shifts"] = " ".join(sorted(provenance))
+        # simulated readings in any shift make the store's results synthetic
+        merged.attrs["synthetic"] = int(any(str(p.get("synthetic", "")) in ("1", "True")
+                                            for p in provenance.values()))
         for name in ("covered", "fit_flag", "postprocess_flag", "converged", "iterations",
                      "n_data", "n_used", "contact_at_bound", "contact_ambiguous",
                      "contact_contrast_open", "probe_contradicts"):

@@ -41,8 +41,10 @@ from tbminv.layout import Layout
 _LOG = logging.getLogger(__name__)
 
 COLUMNS = ("advance", "face_chainage_m", "a", "b", "m", "n", "current_a", "voltage_v", "time",
-           "cutterhead_deg", "stack_n", "voltage_std_v", "contact_ohm_a", "contact_ohm_m")
-"""Columns of a simulated readings log, in order."""
+           "cutterhead_deg", "stack_n", "voltage_std_v", "contact_ohm_a", "contact_ohm_m",
+           "synthetic")
+"""Columns of a simulated readings log, in order (``synthetic`` is 1: the log says it is
+simulated, and the store and the report carry that on)."""
 
 ELECTRODE_RADIUS_M = 0.05
 """Radius of the hemispherical electrode behind the simulated contact resistance, m."""
@@ -160,7 +162,7 @@ def simulate_drive(layout: Layout, scenario: Scenario, faces_m: Sequence[float],
                 "time": (t_adv + _dt.timedelta(seconds=reading_seconds * i)).isoformat(),
                 "cutterhead_deg": ang, "stack_n": int(stack_n),
                 "voltage_std_v": float(std[i]), "contact_ohm_a": cr[a],
-                "contact_ohm_m": cr[m],
+                "contact_ohm_m": cr[m], "synthetic": 1,
             })
         _LOG.info("advance %d at %.2f m: %d readings", adv, face, len(quads))
     return pd.DataFrame(rows, columns=list(COLUMNS))
