@@ -108,9 +108,10 @@ def test_page_one_holds_the_answer(synthetic_report, tmp_path):
             "side, bearing 95° clockwise from the crown looking ahead (interval 70 to 120°)") \
         in p1
     # the detection limit at this shift's noise and what would narrow the answer
-    assert ("detection limit at this shift's noise (median error 2.1 % per reading): a 1:5 "
-            "contact across the tunnel is seen from 11.5 m ahead, a 2 m body of x10 on the "
-            "axis from 3.2 m ahead; smaller, farther or off-axis changes can be missed") in p1
+    assert ("detection limit at this shift's noise (median error 2.1 % per reading), at "
+            "best: a 1:5 contact across the tunnel is seen from 11.5 m ahead, a 2 m body of x10 "
+            "on the axis from 3.2 m ahead; smaller, farther or off-axis changes can be missed. "
+            "These are upper bounds, not assurances") in p1
     assert re.search(r"what would narrow this \(decision support, under the cautions\): "
                      r"probing ahead between chainages [\d.]+ and [\d.]+ m", p1)
     # the key figure's axes are on page 1 (vector text, not a picture)

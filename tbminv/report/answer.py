@@ -187,17 +187,16 @@ def detection_line(limit: DetectionLimit | None, why_not: str = "") -> str:
     def dist(d: float, at_end: bool) -> str:
         if d <= 0:
             return "not at any distance studied"
-        return f"from {d:.1f} m ahead" + (" or farther (the study's last distance)"
-                                          if at_end else "")
+        return f"from {d:.1f} m ahead" + (" (the study's last distance)" if at_end else "")
 
     return (f"detection limit at this shift's noise (median error {100 * limit.noise_rel:.1f} "
-            f"% per reading): a 1:{limit.contact_contrast:g} contact across the tunnel is "
-            f"seen {dist(limit.contact_reach_m, limit.contact_at_grid_end)}, a "
+            f"% per reading), at best: a 1:{limit.contact_contrast:g} contact across the "
+            f"tunnel is seen {dist(limit.contact_reach_m, limit.contact_at_grid_end)}, a "
             f"{limit.body_diameter_m:g} m body of x{limit.body_contrast:g} on the axis "
             f"{dist(limit.body_reach_m, limit.body_at_grid_end)}; smaller, farther or off-axis "
-            "changes can be missed (planning figures: readings taken as independent, "
-            "detection probability 50 %; errors shared by the readings of an advance, such as "
-            "the surface correction's, shorten them)")
+            "changes can be missed. These are upper bounds, not assurances: the readings are "
+            "taken as independent with a 50 % chance of detection, and errors shared by the "
+            "readings of an advance, such as the surface correction's, shorten them")
 
 
 def narrow_line(c: Change | None, n_candidates: int, body: tuple[float, float] | None,
