@@ -43,7 +43,7 @@ def symmetric_dipole_layout():
 
     els = [{"label": "T0", "kind": "cutterhead", "axial_m": 0.05, "radius_m": 0.0,
             "angle_deg": 0.0}]
-    els += [{"label": f"C{i + 1}", "kind": "cutterhead", "axial_m": 0.05, "radius_m": 2.0,
+    els += [{"label": f"T{i + 1}", "kind": "cutterhead", "axial_m": 0.05, "radius_m": 2.0,
              "angle_deg": a} for i, a in enumerate((0.0, 120.0, 240.0))]
     els += [{"label": "S1", "kind": "shield", "axial_m": -2.0, "radius_m": 3.05,
              "angle_deg": 0.0},

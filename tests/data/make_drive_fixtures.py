@@ -31,7 +31,7 @@ D = 6.0
 
 def fixture_layout() -> Layout:
     """The small test layout."""
-    els = [{"label": f"C{i}", "kind": "cutterhead", "axial_m": 0.05, "radius_m": r,
+    els = [{"label": f"T{i}", "kind": "cutterhead", "axial_m": 0.05, "radius_m": r,
             "angle_deg": a} for i, (r, a) in enumerate([(0.3, 0.0), (1.5, 90.0), (2.6, 200.0)])]
     els += [{"label": f"S{i}", "kind": "shield", "axial_m": x, "radius_m": 3.05,
              "angle_deg": a} for i, (x, a) in enumerate([(-2.0, 0.0), (-5.0, 120.0),

@@ -29,7 +29,7 @@ D = 6.0
 
 @pytest.fixture(scope="module")
 def setup():
-    els = [{"label": f"C{i}", "kind": "cutterhead", "axial_m": 0.05, "radius_m": r,
+    els = [{"label": f"T{i}", "kind": "cutterhead", "axial_m": 0.05, "radius_m": r,
             "angle_deg": a} for i, (r, a) in enumerate([(0, 0), (1.5, 90), (2.8, 200)])]
     els += [{"label": f"S{i}", "kind": "shield", "axial_m": x, "radius_m": 3.05,
              "angle_deg": 0} for i, x in enumerate([-2, -5, -8])]

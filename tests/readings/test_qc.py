@@ -29,7 +29,7 @@ LAYOUT = load_layout(demo_layout_path())
 # quadrupoles with four distinct electrodes on the machine (cutterhead dipoles)
 DIPOLES = []
 for _q in LAYOUT.measurements:
-    if _q.b and _q.n and _q.b.startswith("C") and _q.n.startswith("C"):
+    if _q.b and _q.n and _q.b.startswith("T") and _q.n.startswith("T"):
         _key = frozenset([frozenset([_q.a, _q.b]), frozenset([_q.m, _q.n])])
         if _key not in {frozenset([frozenset([d.a, d.b]), frozenset([d.m, d.n])])
                         for d in DIPOLES}:
