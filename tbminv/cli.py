@@ -4,6 +4,7 @@ Commands (the README lists them; DEVELOPERS.md the file formats)::
 
     tbminv simulate --layout L.toml --ground G.toml --faces START:STOP:STEP --out readings.csv
                     [--model axisym|3d|section] [--noise-rel R] [--noise-abs V] [--seed N]
+                    [--cutterhead-angles START:STOP:STEP]
     tbminv check READINGS --layout L.toml --out DIR [--settings S.toml]
     tbminv invert READINGS --layout L.toml --store STORE.nc [--settings S.toml] [--cold]
                     [--scheduler ADDRESS] [--probes PROBES.csv]
@@ -79,10 +80,18 @@ NON_NEGATIVE = _number("non-negative")
 PROBABILITY = _number("probability")
 
 
-def parse_faces(text: str) -> np.ndarray:
-    """Parse ``START:STOP:STEP`` face chainages, m, STOP included when on the step grid.
+def parse_range(text: str, option: str = "--faces", unit: str = "metres",
+                example: str = "1200:1236:1.5") -> np.ndarray:
+    """Parse ``START:STOP:STEP``, STOP included when on the step grid.
 
-    Also accepts a single chainage or a comma-separated list.
+    Also accepts a single value or a comma-separated list.
+
+    Parameters
+    ----------
+    text : str
+        The option's value.
+    option, unit, example : str
+        For the error message.
 
     Raises
     ------
@@ -92,17 +101,30 @@ def parse_faces(text: str) -> np.ndarray:
     try:
         if ":" in text:
             parts = [float(p) for p in text.split(":")]
-            if len(parts) != 3:
+            if len(parts) != 3 or not np.all(np.isfinite(parts)):
                 raise ValueError
             start, stop, step = parts
             if step == 0 or (stop - start) * step < 0:
-                raise CLIError(f"--faces {text}: STEP must move from START towards STOP")
+                raise CLIError(f"{option} {text}: STEP must move from START towards STOP")
             n = int(np.floor((stop - start) / step + 1e-9)) + 1
             return start + step * np.arange(n)
-        return np.array([float(p) for p in text.split(",")])
+        vals = np.array([float(p) for p in text.split(",")])
+        if not np.all(np.isfinite(vals)):
+            raise ValueError
+        return vals
     except ValueError:
-        raise CLIError(f"--faces {text!r}: expected START:STOP:STEP in metres "
-                       "(e.g. 1200:1236:1.5) or a comma-separated list") from None
+        raise CLIError(f"{option} {text!r}: expected START:STOP:STEP in {unit} "
+                       f"(e.g. {example}) or a comma-separated list") from None
+
+
+def parse_faces(text: str) -> np.ndarray:
+    """Parse ``--faces START:STOP:STEP`` face chainages, m (see :func:`parse_range`)."""
+    return parse_range(text)
+
+
+def parse_angles(text: str) -> np.ndarray:
+    """Parse ``--cutterhead-angles START:STOP:STEP``, degrees (see :func:`parse_range`)."""
+    return parse_range(text, "--cutterhead-angles", "degrees", "0:315:45")
 
 
 
@@ -112,10 +134,14 @@ def cmd_simulate(args: argparse.Namespace) -> int:
     layout = load_layout(args.layout)
     scenario = load_scenario(args.ground)
     faces = parse_faces(args.faces)
+    angles = None if args.cutterhead_angles is None else parse_angles(args.cutterhead_angles)
     df = simulate_drive(layout, scenario, faces, model=args.model,
-                            noise_rel=args.noise_rel, noise_abs_v=args.noise_abs, seed=args.seed)
+                            noise_rel=args.noise_rel, noise_abs_v=args.noise_abs, seed=args.seed,
+                            cutterhead_angles_deg=angles)
     out = write_readings(df, args.out)
-    print(f"simulated {len(faces)} advances, {len(df)} readings ({args.model} model) -> {out}")
+    turn = "" if angles is None else f" at {len(angles)} cutterhead angles each"
+    print(f"simulated {len(faces)} advances{turn}, {len(df)} readings ({args.model} model) "
+          f"-> {out}")
     return 0
 
 
@@ -189,6 +215,10 @@ def build_parser() -> argparse.ArgumentParser:
     s.add_argument("--noise-abs", type=NON_NEGATIVE, default=0.0,
                    help="absolute voltage noise, V")
     s.add_argument("--seed", type=int, default=None, help="random seed for the noise")
+    s.add_argument("--cutterhead-angles", default=None, metavar="START:STOP:STEP",
+                   help="cutterhead angles, degrees (STOP included): every reading of every "
+                        "advance is simulated at each, and logs its cutterhead_deg "
+                        "(default: one reading per quadrupole at 0 degrees)")
     s.set_defaults(func=cmd_simulate)
 
     c = sub.add_parser("check", help="screen a readings log: quarantine, QC, error model")
@@ -208,7 +238,9 @@ def build_parser() -> argparse.ArgumentParser:
                "it is done;\nafter a crash or a kill, the same command resumes where it "
                "stopped.\nAppending to a store continues its drive: advances it holds are "
                "skipped, the first new\nadvance starts from its last model and the contact "
-               "fit uses its advances' readings.\n\n"
+               "fit uses its advances' readings.\nEvery reading is modelled at its own logged "
+               "cutterhead_deg (readings without a turning\ncutterhead electrode are stacked "
+               "over the angles).\n\n"
                "exit codes:\n"
                "  0  success\n"
                "  2  bad input (one line naming the file, row or field); nothing is stored\n"

@@ -12,6 +12,14 @@ on :mod:`tbminv.forward.axisym`).
   coarser than the forward mesh, built once per layout; its lines follow the machine and tunnel
   edges so the steel and the bore are left out (fixed regions, never inverted). It reaches the
   forward domain's edge with growing cells, so every forward ground cell belongs to one parameter.
+* Every reading is modelled at its own logged cutterhead angle: readings of a quadrupole with
+  an electrode turning with the cutterhead are kept per angle
+  (:class:`tbminv.readings.advance.AngleRows`), the others stacked; the axisymmetric model
+  serves all angles of an advance from one solve per harmonic, and each reading gets the
+  geometric factor of its own angle. The surface correction uses the factors of the
+  advance's median angle for every reading (a 3D run per angle is not made). The contact fit
+  (one value per quadrupole, table at angle 0) takes each reading brought to angle 0 by the
+  homogeneous ratio of its quadrupole, then stacked (:meth:`DriveInverter.contact_stacked`).
 * Data weights come from the QC error model and a modelling-error floor. ``err_ohm`` of the QC
   estimates the root mean square of the normal-reciprocal difference, so one reading has
   ``err / sqrt(2)`` and the mean of a pair ``err / 2``; the relative floor
@@ -66,7 +74,7 @@ from tbminv.forward.surfacetable import SurfaceTableSpec
 from tbminv.inversion.contactfit import ContactFitter, build_response_table
 from tbminv.inversion.grid import build_parameter_grid
 from tbminv.inversion.history import DriveHistory, grid_signature
-from tbminv.inversion.image import ImageResult, invert_image, shift_model
+from tbminv.inversion.image import ImageResult, invert_image, row_angles, shift_model
 from tbminv.inversion.journal import Journal
 from tbminv.inversion.operator import DriveOperator
 from tbminv.inversion.outcome import (
@@ -83,7 +91,7 @@ from tbminv.inversion.settings import (
     InversionSettings,
 )
 from tbminv.layout import Layout
-from tbminv.readings.advance import AdvanceData
+from tbminv.readings.advance import AdvanceData, stack_rows
 from tbminv.readings.errorfloor import with_error_floor
 from tbminv.readings.probes import ProbeLog
 
@@ -153,6 +161,47 @@ class DriveInverter:
             self._k[key] = geometric_factors_from_response(r, rho_ref)
         return self._k[key]
 
+    def row_geometric_factors(self, adv: AdvanceData, rho_ref: float) -> np.ndarray:
+        """Numeric geometric factors per row of ``adv.angle_rows()``, m.
+
+        Each reading's factor is that of its quadrupole at its own cutterhead angle; the
+        homogeneous runs of all angles of the advance come from one solve.
+        """
+        rows = adv.angle_rows()
+        angles, index = row_angles(rows)
+        if len(angles) == 1:
+            k = self.geometric_factors(adv.face_chainage_m, angles[0], rho_ref)
+            return k[rows.quad]
+        key = (*self._op_key(adv.face_chainage_m, adv.cutterhead_deg),
+               tuple(round(a, 6) for a in angles), rho_ref)
+        if key not in self._k:
+            op = self.operator(adv.face_chainage_m, adv.cutterhead_deg)
+            r = op.responses(np.full(self.grid.n_param, rho_ref), angles)
+            self._k[key] = geometric_factors_from_response(r, rho_ref)
+        return self._k[key][index, rows.quad]
+
+    def contact_stacked(self, adv: AdvanceData) -> AdvanceData:
+        """The advance with each quadrupole stacked at the contact table's cutterhead angle.
+
+        The contact fit compares one value per quadrupole with a response table computed at
+        cutterhead angle 0 (:func:`tbminv.inversion.contactfit.build_response_table`). Each
+        reading of a quadrupole with a turning electrode, taken at angle ``a``, is first
+        brought to angle 0 by the homogeneous ratio ``R_hom(0) / R_hom(a)`` of the same model
+        (exact in homogeneous ground, first order with a contact, as the surface correction),
+        then the readings are stacked (:func:`tbminv.readings.advance.stack_rows`). Unchanged
+        when the advance has no rows or every turning reading is at angle 0.
+        """
+        rows = adv.rows
+        if rows is None or not np.any(rows.turns & (np.mod(rows.angle_deg, 360.0) != 0.0)):
+            return adv
+        rho = self.reference_resistivity(adv)
+        k_own = self.row_geometric_factors(adv, rho)
+        k_table = self.geometric_factors(adv.face_chainage_m, 0.0, rho)[rows.quad]
+        with np.errstate(invalid="ignore", divide="ignore"):
+            factor = np.where(rows.turns, k_own / k_table, 1.0)
+        r, e = stack_rows(rows, adv.r_ohm.size, factor)
+        return dataclasses.replace(adv, r_ohm=r, rel_error=e)
+
     def contact_fitter(self, rho_ref: float) -> ContactFitter:
         """Contact fitter with a response table of this layout (built once, cached on disk).
 
@@ -221,19 +270,21 @@ class DriveInverter:
         f = surface_factors(self.layout, adv.face_chainage_m, adv.cutterhead_deg,
                             rho_ohmm=self.reference_resistivity(adv),
                             method=self.surface_method)
-        return dataclasses.replace(adv, r_ohm=adv.r_ohm / f)
+        extra = {}
+        if adv.rows is not None:   # the factor of the advance's median angle for every row
+            extra["rows"] = dataclasses.replace(adv.rows, r_ohm=adv.rows.r_ohm / f[adv.rows.quad])
+        return dataclasses.replace(adv, r_ohm=adv.r_ohm / f, **extra)
 
     def invert_advance(self, adv: AdvanceData, start: np.ndarray | None = None,
                        reference: np.ndarray | None = None) -> ImageResult:
         """Image inversion of one advance (operator and factors from the caches)."""
         op = self.operator(adv.face_chainage_m, adv.cutterhead_deg)
-        k = self.geometric_factors(adv.face_chainage_m, adv.cutterhead_deg,
-                                   self.reference_resistivity(adv))
+        k = self.row_geometric_factors(adv, self.reference_resistivity(adv))
         cells = probe_reference(self.grid, self.probes, adv.face_chainage_m, adv.time)
         img = invert_image(op, adv, k, self.settings, start, reference, cells)
-        _LOG.info("advance %d at %.2f m: chi2 %.2f after %d iterations (%s), %.1f s",
-                  adv.advance, adv.face_chainage_m, img.chi2, img.iterations,
-                  img.stop_reason, img.time_s)
+        _LOG.info("advance %d at %.2f m (%d cutterhead angles): chi2 %.2f after %d iterations "
+                  "(%s), %.1f s", adv.advance, adv.face_chainage_m, max(adv.n_angles, 1),
+                  img.chi2, img.iterations, img.stop_reason, img.time_s)
         return img
 
     def prepare(self, data: Sequence[AdvanceData], progress: bool = False
@@ -241,7 +292,9 @@ class DriveInverter:
         """Build and check everything the drive needs before its first image.
 
         Sets the reference resistivity (from the first advance), applies the surface
-        correction to every advance (3D runs, cached), adds the modelling-error floor
+        correction to every advance (3D runs, cached), with ``contact_fit`` restacks each
+        quadrupole at the contact table's angle (:meth:`contact_stacked`), adds the
+        modelling-error floor
         ``[invert] model_error_floor`` in quadrature to every reading's QC error
         (:func:`tbminv.readings.errorfloor.with_error_floor`; both the images and the contact
         fit see it) and, with ``contact_fit``, builds the contact table and fitter and checks
@@ -281,6 +334,8 @@ class DriveInverter:
                                      f"{exc}; set [invert] surface_correction = false to invert "
                                      "without it") from exc
             self._clock("surface factors", t0)
+        if self.settings.contact_fit:
+            data = [self.contact_stacked(adv) for adv in data]
         data = with_error_floor(data, self.settings.model_error_floor)
         if self.settings.contact_fit:
             try:

@@ -1,4 +1,9 @@
-"""One image inversion of one advance (pyGIMLi Inversion on the axisymmetric operator)."""
+"""One image inversion of one advance (pyGIMLi Inversion on the axisymmetric operator).
+
+Every reading is modelled at its own logged cutterhead angle (:class:`AngleRows` of the
+advance: readings of a quadrupole with a turning electrode per angle, the others stacked); the
+axisymmetric model serves all angles from one solve per harmonic.
+"""
 
 from __future__ import annotations
 
@@ -17,7 +22,7 @@ from tbminv.inversion.grid import ParameterGrid
 from tbminv.inversion.operator import DriveOperator, ReferencedModelling, make_pg_modelling
 from tbminv.inversion.outcome import POSTPROCESS_DOI_FAILED
 from tbminv.inversion.settings import InversionError, InversionSettings
-from tbminv.readings.advance import AdvanceData
+from tbminv.readings.advance import AdvanceData, AngleRows
 
 _LOG = logging.getLogger(__name__)
 
@@ -66,7 +71,8 @@ def invert_image(op: DriveOperator, data: AdvanceData, k: np.ndarray,
     op : DriveOperator
     data : AdvanceData
     k : ndarray
-        Geometric factors per protocol quadrupole, m.
+        Geometric factors per row of ``data.angle_rows()`` (a protocol quadrupole at a
+        cutterhead angle), m.
     settings : InversionSettings
     start_model : ndarray, optional
         Starting resistivity per parameter cell, ohm-m (default: median apparent resistivity).
@@ -79,19 +85,26 @@ def invert_image(op: DriveOperator, data: AdvanceData, k: np.ndarray,
         then count them as data.
     """
     t0 = time.perf_counter()
-    rhoa = k * data.r_ohm
-    usable = np.isfinite(rhoa) & np.isfinite(data.rel_error) & (data.rel_error > 0)
+    rows = data.angle_rows()
+    k = np.asarray(k, float)
+    if k.shape != (rows.size,):
+        raise ValueError(f"advance {data.advance}: {k.size} geometric factors for "
+                         f"{rows.size} readings")
+    rhoa = k * rows.r_ohm
+    usable = np.isfinite(rhoa) & np.isfinite(rows.rel_error) & (rows.rel_error > 0)
     negative = usable & ~(rhoa > 0)
     if negative.any():   # log data: a negative apparent resistivity cannot be inverted
         _LOG.warning("advance %d: %d readings with a negative apparent resistivity are left "
                      "out of the image (quadrupoles %s)", data.advance, int(negative.sum()),
-                     ", ".join(str(i) for i in np.nonzero(negative)[0][:10]))
+                     ", ".join(str(i) for i in rows.quad[negative][:10]))
     sel = np.nonzero(usable & (rhoa > 0))[0]
     if sel.size < 3:
         raise InversionError(f"advance {data.advance}: {sel.size} usable readings; at least 3 "
                              "are needed")
     y = rhoa[sel]
-    err = data.rel_error[sel]
+    err = rows.rel_error[sel]
+    quad = rows.quad[sel]
+    angles, angle_index = row_angles(rows.take(sel))
     med = float(np.median(y))
     y_all, err_all = y, err
     if cell_reference is not None:
@@ -103,7 +116,7 @@ def invert_image(op: DriveOperator, data: AdvanceData, k: np.ndarray,
 
     def run(lam: float, factor: float, start: np.ndarray, max_iter: int,
             reference: np.ndarray | None = None) -> tuple[Any, np.ndarray]:
-        fop = make_pg_modelling(op, sel, k[sel], data.cutterhead_deg)
+        fop = make_pg_modelling(op, quad, k[sel], data.cutterhead_deg, angles, angle_index)
         if cell_reference is not None:
             fop = ReferencedModelling(fop, cell_reference.index)
         inv = pg.Inversion(fop=fop, verbose=False)
@@ -160,10 +173,13 @@ def invert_image(op: DriveOperator, data: AdvanceData, k: np.ndarray,
     if response is not None and response.size == y_all.size:
         response = response[: y.size]     # readings first, then the cell references
     if response is None or response.size != y.size:
-        response = k[sel] * op.response(model, data.cutterhead_deg)[sel]
+        response = k[sel] * op.responses(model, angles)[angle_index, quad]
     # coverage from the Jacobian at the final model
-    _, jac = op.jacobian(model, data.cutterhead_deg)
-    js = jac[sel] / (data.r_ohm[sel][:, None] * err[:, None])   # d ln R / d ln rho / sigma_ln
+    if len(angles) == 1:
+        jac = op.jacobian(model, angles[0])[1][quad]
+    else:
+        jac = op.jacobians(model, angles)[1][angle_index, quad]
+    js = jac / (rows.r_ohm[sel][:, None] * err[:, None])   # d ln R / d ln rho / sigma_ln
     cov = np.log10(np.maximum(np.abs(js).sum(axis=0) / op.grid.volume_m3, 1e-300))
     doi = None
     flag = 0
@@ -179,6 +195,20 @@ def invert_image(op: DriveOperator, data: AdvanceData, k: np.ndarray,
     return ImageResult(model, chi2, float(inv.relrms()), iters, lam_used, reason,
                        converged and chi2 <= settings.chi2_flag, time.perf_counter() - t0,
                        hist, cov, doi, int(sel.size), response, y, err, flag)
+
+
+def row_angles(rows: AngleRows) -> tuple[list[float], np.ndarray]:
+    """Distinct cutterhead angles to model, degrees, and each row's index into them.
+
+    Rows that do not turn with the cutterhead take the first angle of a turning row (their
+    geometry is the same at any angle), so they add no angle of their own.
+    """
+    ang = np.asarray(rows.angle_deg, float).copy()
+    turns = np.asarray(rows.turns, bool)
+    if turns.any() and (~turns).any():
+        ang[~turns] = ang[turns][0]
+    uniq, index = np.unique(ang, return_inverse=True)
+    return [float(a) for a in uniq], index.reshape(-1)
 
 
 def _lcurve_corner(points: Sequence[tuple[float, float]]) -> int:
@@ -219,4 +249,4 @@ def shift_model(grid: ParameterGrid, model: np.ndarray, advance_m: float) -> np.
     return np.exp(interp(pts))
 
 
-__all__ = ["CellReference", "ImageResult", "invert_image", "shift_model"]
+__all__ = ["CellReference", "ImageResult", "invert_image", "row_angles", "shift_model"]

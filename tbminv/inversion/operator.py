@@ -5,7 +5,8 @@ Parameters are the resistivities (ohm-m) of the cells of the parameter grid
 machine and bore cells removed); every forward ground cell takes the value of the parameter cell
 containing it (:meth:`ParameterGrid.forward_mapping`). The response is the protocol's transfer
 resistances (optionally scaled per reading, e.g. by geometric factors to apparent
-resistivities), the Jacobian is the adjoint Jacobian of :mod:`tbminv.forward.axisym.solver`
+resistivities), each reading at its own cutterhead angle (all angles from one solve per
+harmonic), the Jacobian is the adjoint Jacobian of :mod:`tbminv.forward.axisym.solver`
 summed over the forward cells of each parameter. pyGIMLi's :class:`pygimli.Inversion` applies
 its log transforms on top.
 """
@@ -39,14 +40,20 @@ class ImageModelling(pg.Modelling):
     grid : ParameterGrid
         Parameter cells.
     cutterhead_deg : float, optional
-        Cutterhead angle of the readings, degrees (default: the model's).
+        Cutterhead angle of the readings, degrees (default: the model's); ignored with
+        ``angles_deg``.
     scale : numpy.ndarray, optional
         Factor per reading (e.g. geometric factors in m: apparent resistivity); default 1.
     select : numpy.ndarray of int, optional
-        Readings of the protocol used (default: all).
+        Protocol quadrupole of each reading used (default: all, once).
     mapping : scipy.sparse.csr_matrix, optional
         Forward ground cells x parameters (default: ``grid.forward_mapping`` of the model's
         ground cells).
+    angles_deg : sequence of float, optional
+        Distinct cutterhead angles of the readings, degrees: one solve per harmonic serves
+        them all (:meth:`AxisymLayoutSolver.responses`).
+    angle_index : numpy.ndarray of int, optional
+        Index into ``angles_deg`` of each reading (default: all at the first).
 
     Notes
     -----
@@ -57,7 +64,8 @@ class ImageModelling(pg.Modelling):
 
     def __init__(self, model: AxisymLayoutSolver, grid: ParameterGrid,
                  cutterhead_deg: float | None = None, scale: np.ndarray | None = None,
-                 select: np.ndarray | None = None, mapping: sp.csr_matrix | None = None) -> None:
+                 select: np.ndarray | None = None, mapping: sp.csr_matrix | None = None,
+                 angles_deg: Any = None, angle_index: np.ndarray | None = None) -> None:
         super().__init__()
         self.model = model
         self.grid = grid
@@ -69,6 +77,11 @@ class ImageModelling(pg.Modelling):
         self.scale = np.ones(self.select.size) if scale is None else np.asarray(scale, float)
         if self.scale.shape != self.select.shape:
             raise ValueError("scale must have one value per selected reading")
+        self.angles_deg = None if angles_deg is None else [float(a) for a in angles_deg]
+        self.angle_index = (np.zeros(self.select.size, int) if angle_index is None
+                            else np.asarray(angle_index, int))
+        if self.angle_index.shape != self.select.shape:
+            raise ValueError("angle_index must have one value per selected reading")
         self.setMesh(grid.mesh)
         self._jac = pg.Matrix(int(self.select.size), grid.n_param)
         self.setJacobian(self._jac)
@@ -85,15 +98,27 @@ class ImageModelling(pg.Modelling):
     def response(self, model: Any) -> Any:
         """Scaled transfer resistances of the selected readings."""
         self.n_response += 1
-        r = self.model.response(self.forward_resistivity(model), self.cutterhead_deg)
-        return pg.Vector(self.scale * r[self.select])
+        rho = self.forward_resistivity(model)
+        if self.angles_deg is None or len(self.angles_deg) == 1:
+            ang = self.cutterhead_deg if self.angles_deg is None else self.angles_deg[0]
+            r = self.model.response(rho, ang)
+            return pg.Vector(self.scale * r[self.select])
+        r = self.model.responses(rho, self.angles_deg)
+        return pg.Vector(self.scale * r[self.angle_index, self.select])
 
     def createJacobian(self, model: Any) -> None:  # noqa: N802 - pyGIMLi's name
         """Fill the Jacobian d(scale R)/d rho of the parameters."""
         self.n_jacobian += 1
         m = np.asarray(model, float)
-        _, jc = self.model.jacobian(self.forward_resistivity(m), self.cutterhead_deg)
-        jp = np.asarray(jc[self.select] @ self.mapping)  # d R / d ln rho_param
+        rho = self.forward_resistivity(m)
+        if self.angles_deg is None or len(self.angles_deg) == 1:
+            ang = self.cutterhead_deg if self.angles_deg is None else self.angles_deg[0]
+            _, jc = self.model.jacobian(rho, ang)
+            jrows = jc[self.select]
+        else:
+            _, jcs = self.model.jacobians(rho, self.angles_deg)
+            jrows = jcs[self.angle_index, self.select]
+        jp = np.asarray(jrows @ self.mapping)  # d R / d ln rho_param
         jj = jp * self.scale[:, None] / m[None, :]
         for i in range(jj.shape[0]):
             self._jac[i] = pg.Vector(jj[i])
@@ -140,6 +165,20 @@ class DriveOperator:
                              if sp.issparse(j) else j @ self.P)
 
 
+    def responses(self, rho_param: np.ndarray, angles_deg: Any) -> np.ndarray:
+        """Transfer resistances at several cutterhead angles (one solve), (n_angles, nq), ohm."""
+        self.n_calls += 1
+        return self.fwd.responses(self.P @ np.asarray(rho_param, float), list(angles_deg))
+
+    def jacobians(self, rho_param: np.ndarray, angles_deg: Any
+                  ) -> tuple[np.ndarray, np.ndarray]:
+        """R (n_angles, nq), ohm, and dR/d ln(rho_param) (n_angles, nq, n_param)."""
+        r, j = self.fwd.jacobians(self.P @ np.asarray(rho_param, float), list(angles_deg))
+        jp = np.stack([np.asarray(sp.csr_matrix(ja).dot(self.P).toarray()
+                                  if sp.issparse(ja) else ja @ self.P) for ja in j])
+        return r, jp
+
+
 def _keypoints(nodes: np.ndarray) -> list[tuple[float, float]]:
     """Grid lines as mesh key points (coordinate, local spacing = smaller adjacent cell)."""
     d = np.diff(nodes)
@@ -148,10 +187,15 @@ def _keypoints(nodes: np.ndarray) -> list[tuple[float, float]]:
 
 
 def make_pg_modelling(op: DriveOperator, sel: np.ndarray, k: np.ndarray,
-                      cutterhead_deg: float) -> Any:
-    """A :class:`pygimli.Modelling` of apparent resistivities ``k R`` of readings ``sel``."""
+                      cutterhead_deg: float, angles_deg: Any = None,
+                      angle_index: np.ndarray | None = None) -> Any:
+    """A :class:`pygimli.Modelling` of apparent resistivities ``k R`` of readings ``sel``.
+
+    ``sel`` holds each reading's protocol quadrupole; with ``angles_deg`` each reading is
+    modelled at ``angles_deg[angle_index]`` (see :class:`ImageModelling`).
+    """
     return ImageModelling(op.fwd, op.grid, cutterhead_deg=cutterhead_deg, scale=k, select=sel,
-                          mapping=op.P)
+                          mapping=op.P, angles_deg=angles_deg, angle_index=angle_index)
 
 
 class ReferencedModelling(pg.Modelling):

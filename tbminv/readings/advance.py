@@ -17,6 +17,7 @@ import os
 from collections.abc import Callable
 from dataclasses import dataclass
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 import pandas as pd
@@ -31,6 +32,55 @@ _LOG = logging.getLogger(__name__)
 
 
 # ------------------------------------------------------------------------ advance data
+ANGLE_RESOLUTION_DEG = 1.0
+"""Readings of a quadrupole with a turning electrode whose logged cutterhead angles round to
+the same multiple of this (degrees) are merged and modelled at their mean angle."""
+
+
+@dataclass
+class AngleRows:
+    """One advance's readings per (protocol quadrupole, cutterhead angle), as modelled.
+
+    A quadrupole with an electrode that turns with the cutterhead (kind ``cutterhead``,
+    insulated) has one row per angle it was read at (angles within
+    :data:`ANGLE_RESOLUTION_DEG` merged, at their circular mean); any other quadrupole has
+    one row, its readings stacked over all angles (its geometry does not turn).
+
+    Attributes
+    ----------
+    quad : ndarray of int (n,)
+        Protocol index of each row.
+    angle_deg : ndarray (n,)
+        Cutterhead angle the row is modelled at, degrees (for rows that do not turn: the
+        advance's ``cutterhead_deg``).
+    turns : ndarray of bool (n,)
+        The row's geometry turns with the cutterhead.
+    r_ohm : ndarray (n,)
+        Weighted mean transfer resistance, ohm.
+    rel_error : ndarray (n,)
+        Relative standard error of ``r_ohm``.
+    n_readings : ndarray of int (n,)
+        Readings merged into the row.
+    """
+
+    quad: np.ndarray
+    angle_deg: np.ndarray
+    turns: np.ndarray
+    r_ohm: np.ndarray
+    rel_error: np.ndarray
+    n_readings: np.ndarray
+
+    @property
+    def size(self) -> int:
+        """Number of rows."""
+        return int(self.quad.size)
+
+    def take(self, idx: np.ndarray) -> AngleRows:
+        """The rows ``idx`` (index or mask)."""
+        return AngleRows(self.quad[idx], self.angle_deg[idx], self.turns[idx], self.r_ohm[idx],
+                         self.rel_error[idx], self.n_readings[idx])
+
+
 @dataclass
 class AdvanceData:
     """Readings of one advance ready for inversion (protocol order).
@@ -49,6 +99,15 @@ class AdvanceData:
     n_valid : int
         Valid readings that went into ``r_ohm``.
     time : str or None
+    rows : AngleRows or None
+        The readings per (quadrupole, cutterhead angle), as the image inversion models them
+        (None: one row per quadrupole at ``cutterhead_deg``, see :meth:`angle_rows`).
+
+    Notes
+    -----
+    ``cutterhead_deg`` is the median logged angle of the advance; ``r_ohm`` stacks every
+    quadrupole over all angles, ``rows`` keeps the angles (the drive inversion models each
+    row at its angle, and restacks ``r_ohm`` at the contact table's angle from the rows).
     """
 
     advance: int
@@ -59,9 +118,71 @@ class AdvanceData:
     n_readings: int
     n_valid: int
     time: str | None = None
+    rows: AngleRows | None = None
+
+    def angle_rows(self) -> AngleRows:
+        """:attr:`rows`, or one row per quadrupole at ``cutterhead_deg`` when not set."""
+        if self.rows is not None:
+            return self.rows
+        nq = self.r_ohm.size
+        return AngleRows(np.arange(nq), np.full(nq, float(self.cutterhead_deg)),
+                         np.zeros(nq, bool), self.r_ohm, self.rel_error,
+                         np.isfinite(self.r_ohm).astype(np.int64))
+
+    @property
+    def n_angles(self) -> int:
+        """Distinct cutterhead angles of the rows that turn (0: none turns)."""
+        rows = self.angle_rows()
+        return int(np.unique(rows.angle_deg[rows.turns]).size)
 
 
-def advance_data(qc_table: pd.DataFrame, layout: Layout) -> list[AdvanceData]:
+def stack_rows(rows: AngleRows, n_quadrupoles: int, factor: np.ndarray | None = None
+               ) -> tuple[np.ndarray, np.ndarray]:
+    """Rows stacked per quadrupole: weighted mean of ``factor * r_ohm`` and its relative error.
+
+    Weights are ``1 / e^2`` with ``e = rel_error |factor r_ohm|`` (as the readings of one
+    quadrupole are stacked in :func:`advance_data`).
+
+    Parameters
+    ----------
+    rows : AngleRows
+    n_quadrupoles : int
+        Protocol length.
+    factor : ndarray (n,), optional
+        Factor per row (e.g. a homogeneous ratio bringing a reading to another cutterhead
+        angle); default 1. Rows with a non-finite factor are left out.
+
+    Returns
+    -------
+    (ndarray, ndarray)
+        ``r_ohm`` (nq,), ohm, and ``rel_error`` (nq,); NaN where no row is usable.
+    """
+    f = np.ones(rows.size) if factor is None else np.asarray(factor, float)
+    r = f * rows.r_ohm
+    with np.errstate(invalid="ignore", divide="ignore"):
+        w = 1.0 / (rows.rel_error * np.abs(r)) ** 2
+    ok = np.isfinite(r) & np.isfinite(w) & (w > 0)
+    sw = np.bincount(rows.quad[ok], weights=w[ok], minlength=n_quadrupoles)
+    swr = np.bincount(rows.quad[ok], weights=(w * r)[ok], minlength=n_quadrupoles)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        mean = np.where(sw > 0, swr / sw, np.nan)
+        rel = np.where(sw > 0, 1.0 / np.sqrt(sw) / np.abs(mean), np.nan)
+    return mean, rel
+
+
+def turning_quadrupoles(layout: Layout) -> np.ndarray:
+    """Protocol quadrupoles with an electrode that turns with the cutterhead (bool per one).
+
+    A cutterhead electrode turns unless it is bare on the steel (it then reads the machine's
+    potential wherever it is).
+    """
+    turning = {e.label for e in layout.electrodes if e.kind == "cutterhead" and not e.on_steel}
+    return np.array([any(x in turning for x in q.labels() if x is not None)
+                     for q in layout.measurements], bool)
+
+
+def advance_data(qc_table: pd.DataFrame, layout: Layout,
+                 angle_resolution_deg: float = ANGLE_RESOLUTION_DEG) -> list[AdvanceData]:
     """Group QC'd readings by advance and protocol quadrupole (normal and reciprocal merged).
 
     Readings that are not in the layout's protocol (in either direction) are ignored with a
@@ -76,12 +197,18 @@ def advance_data(qc_table: pd.DataFrame, layout: Layout) -> list[AdvanceData]:
         :attr:`tbminv.readings.qc.QCResult.table`.
     layout : Layout
         Its protocol orders the quadrupoles; remotes at infinity are poles.
+    angle_resolution_deg : float
+        Readings of a turning quadrupole (:func:`turning_quadrupoles`) whose logged
+        ``cutterhead_deg`` round to the same multiple of this are one row of
+        :attr:`AdvanceData.rows`, at their circular mean angle.
 
     Returns
     -------
     list of AdvanceData
         One per advance in the table, in increasing advance order.
     """
+    if not angle_resolution_deg > 0:
+        raise ValueError(f"angle_resolution_deg = {angle_resolution_deg!r}: expected > 0")
     quads = layout.measurements
     n = len(qc_table)
     if n == 0:
@@ -115,16 +242,55 @@ def advance_data(qc_table: pd.DataFrame, layout: Layout) -> list[AdvanceData]:
     with np.errstate(invalid="ignore", divide="ignore"):
         mean = np.where(w > 0, wr / w, np.nan)
         rel = np.where(w > 0, 1.0 / np.sqrt(w) / np.abs(mean), np.nan)
+    logged = (qc_table["cutterhead_deg"].to_numpy(float) if "cutterhead_deg" in qc_table
+              else np.full(n, np.nan))
+    logged = np.where(np.isfinite(logged), logged, angle.reindex(adv).to_numpy(float))
+    rows = _angle_rows(adv[use], quad[use].astype(np.int64), logged[use], r[use], wt,
+                       turning_quadrupoles(layout), angle, angle_resolution_deg)
     out = []
     for i, a in enumerate(size.index):
         t = None
         if first_time is not None and pd.notna(first_time[a]):
             t = pd.Timestamp(first_time[a]).isoformat()
         out.append(AdvanceData(int(a), float(face[a]), float(angle[a]), mean[i].copy(),
-                               rel[i].copy(), int(size[a]), int(cnt[i].sum()), t))
+                               rel[i].copy(), int(size[a]), int(cnt[i].sum()), t,
+                               rows.get(a)))
     if unknown:
         _LOG.info("%d valid readings are not in the layout's protocol and were not inverted",
                   unknown)
+    return out
+
+
+def _angle_rows(adv: np.ndarray, quad: np.ndarray, angle_deg: np.ndarray, r: np.ndarray,
+                wt: np.ndarray, turning: np.ndarray, advance_angle: pd.Series,
+                resolution_deg: float) -> dict[Any, AngleRows]:
+    """Rows per (advance, quadrupole, angle bin) of the valid readings (weights ``1/e^2``)."""
+    turns = turning[quad] if quad.size else np.zeros(0, bool)
+    bins = np.where(turns, np.round(np.mod(angle_deg, 360.0) / resolution_deg) %
+                    round(360.0 / resolution_deg), -1).astype(np.int64)
+    z = np.exp(1j * np.radians(angle_deg))
+    df = pd.DataFrame({"adv": adv, "q": quad, "bin": bins, "w": wt, "wr": wt * r,
+                       "zr": z.real, "zi": z.imag, "turns": turns})
+    out: dict[Any, AngleRows] = {}
+    if df.empty:
+        return out
+    # the angle of a bin: circular mean of its readings over all quadrupoles of the advance
+    ang = df[df.turns].groupby(["adv", "bin"]).agg(zr=("zr", "mean"), zi=("zi", "mean"))
+    bin_angle = {k: float(np.degrees(np.arctan2(v.zi, v.zr)) % 360.0)
+                 for k, v in ang.iterrows()}
+    g = df.groupby(["adv", "q", "bin"], sort=True).agg(w=("w", "sum"), wr=("wr", "sum"),
+                                                       n=("w", "size"), turns=("turns", "first"))
+    for a, part in g.groupby(level="adv", sort=True):
+        q = part.index.get_level_values("q").to_numpy(np.int64)
+        b = part.index.get_level_values("bin").to_numpy(np.int64)
+        tr = part["turns"].to_numpy(bool)
+        w = part["w"].to_numpy(float)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            mean = np.where(w > 0, part["wr"].to_numpy(float) / w, np.nan)
+            rel = np.where(w > 0, 1.0 / np.sqrt(w) / np.abs(mean), np.nan)
+        angs = np.array([bin_angle[(a, bb)] if t else float(advance_angle[a])
+                         for bb, t in zip(b, tr)], float)
+        out[a] = AngleRows(q, angs, tr, mean, rel, part["n"].to_numpy(np.int64))
     return out
 
 
@@ -312,5 +478,6 @@ def prepare_advances(source: str | os.PathLike[str] | pd.DataFrame, layout: Layo
                             n_negative_rhoa=n_neg)
 
 
-__all__ = ["AdvanceData", "ExpectedSign", "PreparedReadings", "advance_data",
-           "flag_negative_apparent", "prepare_advances", "protocol_index"]
+__all__ = ["ANGLE_RESOLUTION_DEG", "AdvanceData", "AngleRows", "ExpectedSign",
+           "PreparedReadings", "advance_data", "flag_negative_apparent", "prepare_advances",
+           "protocol_index", "stack_rows", "turning_quadrupoles"]

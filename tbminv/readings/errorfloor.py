@@ -60,7 +60,8 @@ def with_error_floor(data: Sequence[T], floor_rel: float) -> list[T]:
     Parameters
     ----------
     data : sequence of AdvanceData
-        Any dataclass with a ``rel_error`` array (:class:`tbminv.readings.advance.AdvanceData`).
+        Any dataclass with a ``rel_error`` array (:class:`tbminv.readings.advance.AdvanceData`;
+        its ``rows``, the readings per cutterhead angle, are floored too).
     floor_rel : float
         Relative modelling-error floor, fraction; 0 returns unchanged copies.
 
@@ -70,8 +71,15 @@ def with_error_floor(data: Sequence[T], floor_rel: float) -> list[T]:
         New objects; the inputs are not changed.
     """
     f = check_floor(floor_rel)
-    return [dataclasses.replace(d, rel_error=floored_error(d.rel_error, f))  # type: ignore
-            for d in data]
+    out = []
+    for d in data:
+        extra = {}
+        rows = getattr(d, "rows", None)
+        if rows is not None:   # the readings per cutterhead angle get the same floor
+            extra["rows"] = dataclasses.replace(rows, rel_error=floored_error(rows.rel_error, f))
+        out.append(dataclasses.replace(d, rel_error=floored_error(d.rel_error, f),  # type: ignore
+                                       **extra))
+    return out
 
 
 __all__ = ["check_floor", "floored_error", "with_error_floor"]

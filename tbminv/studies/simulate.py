@@ -9,6 +9,12 @@ for every row from ``numpy.random.default_rng(seed)`` (same seed, same log)::
     voltage_v = V (1 + noise_rel e1) + noise_abs_v e2,   voltage_std_v = sqrt((noise_rel V)^2
                                                                          + noise_abs_v^2)
 
+With ``cutterhead_angles_deg`` (``tbminv simulate --cutterhead-angles START:STOP:STEP``) every
+reading of every advance is simulated at each of those cutterhead angles, angle by angle, and
+each row logs its own ``cutterhead_deg`` (a turning cutterhead read at several positions in one
+advance). A model with ``response_angles(scenario, face_chainage_m, angles, measurements)``
+(the axisymmetric model) solves once per advance for all angles.
+
 The forward model is a registry name (:func:`tbminv.forward.registry.make_model`: ``axisym``,
 ``3d``, ``section``, ``analytic``) or a model already built for the layout (any object with
 ``response(scenario, face_chainage_m, cutterhead_deg, measurements)``, e.g. a ``Model3D`` with
@@ -91,7 +97,8 @@ def simulate_drive(layout: Layout, scenario: Scenario, faces_m: Sequence[float],
                    noise_abs_v: float = 0.0, seed: int | None = None,
                    current_a: float = 1.0, cutterhead_deg: float | Sequence[float] = 0.0,
                    stack_n: int = 4, start_time: str = "2026-01-05T06:00:00+00:00",
-                   advance_minutes: float = 45.0, reading_seconds: float = 2.0) -> pd.DataFrame:
+                   advance_minutes: float = 45.0, reading_seconds: float = 2.0,
+                   cutterhead_angles_deg: Sequence[float] | None = None) -> pd.DataFrame:
     """Simulate the readings log of a drive.
 
     Parameters
@@ -112,13 +119,17 @@ def simulate_drive(layout: Layout, scenario: Scenario, faces_m: Sequence[float],
     current_a : float
         Injected current, A.
     cutterhead_deg : float or sequence of float
-        Cutterhead angle for all advances or one per advance, degrees.
+        Cutterhead angle for all advances or one per advance, degrees (ignored with
+        ``cutterhead_angles_deg``).
     stack_n : int
         Stacks per reading written to the log.
     start_time : str
         ISO 8601 time of the first reading.
     advance_minutes, reading_seconds : float
         Time between advances, min, and between readings, s.
+    cutterhead_angles_deg : sequence of float, optional
+        Cutterhead angles, degrees: every reading of every advance is simulated at each, in
+        this order, and logs its angle (:func:`angle_range` builds ``START:STOP:STEP``).
 
     Returns
     -------
@@ -132,10 +143,16 @@ def simulate_drive(layout: Layout, scenario: Scenario, faces_m: Sequence[float],
                          "expected >= 0")
     if not current_a > 0:
         raise ValueError(f"current_a = {current_a!r}: expected > 0")
-    if np.ndim(cutterhead_deg) == 0:
-        angles = [float(cutterhead_deg)] * len(faces)
+    if cutterhead_angles_deg is not None:
+        turn = [float(a) for a in np.atleast_1d(np.asarray(cutterhead_angles_deg, float))]
+        if not turn or not all(math.isfinite(a) for a in turn):
+            raise ValueError(f"cutterhead_angles_deg = {cutterhead_angles_deg!r}: expected "
+                             "one or more finite angles in degrees")
+        angles = [turn] * len(faces)
+    elif np.ndim(cutterhead_deg) == 0:
+        angles = [[float(cutterhead_deg)]] * len(faces)
     else:
-        angles = [float(a) for a in cutterhead_deg]
+        angles = [[float(a)] for a in cutterhead_deg]
         if len(angles) != len(faces):
             raise ValueError(f"cutterhead_deg has {len(angles)} angles for {len(faces)} faces")
     rng = np.random.default_rng(seed)
@@ -143,29 +160,74 @@ def simulate_drive(layout: Layout, scenario: Scenario, faces_m: Sequence[float],
     proto = _protocol_with_reciprocals(layout)
     quads = [q for q, _ in proto]
     rows: list[dict[str, Any]] = []
-    for adv, (face, ang) in enumerate(zip(faces, angles), start=1):
-        r = np.asarray(fwd.response(scenario, face, ang, quads), float)
+    for adv, (face, turn) in enumerate(zip(faces, angles), start=1):
+        responses = _responses(fwd, scenario, face, turn, quads)
+        t_adv = t0 + _dt.timedelta(minutes=advance_minutes * (adv - 1))
+        i_row = 0
+        for ang, r in zip(turn, responses):
+            v = r * current_a
+            e1 = rng.standard_normal(len(v))
+            e2 = rng.standard_normal(len(v))
+            vn = v * (1.0 + noise_rel * e1) + noise_abs_v * e2
+            std = np.sqrt((noise_rel * v) ** 2 + noise_abs_v ** 2)
+            cr = _contact_ohm(layout, scenario, face, ang)
+            for i, (a, b, m, n) in enumerate(quads):
+                rows.append({
+                    "advance": adv, "face_chainage_m": face, "a": a, "b": b or "", "m": m,
+                    "n": n or "", "current_a": current_a, "voltage_v": float(vn[i]),
+                    "time": (t_adv + _dt.timedelta(seconds=reading_seconds * i_row)).isoformat(),
+                    "cutterhead_deg": ang, "stack_n": int(stack_n),
+                    "voltage_std_v": float(std[i]), "contact_ohm_a": cr[a],
+                    "contact_ohm_m": cr[m], "synthetic": 1,
+                })
+                i_row += 1
+        _LOG.info("advance %d at %.2f m: %d readings at %d cutterhead angles", adv, face,
+                  len(quads) * len(turn), len(turn))
+    return pd.DataFrame(rows, columns=list(COLUMNS))
+
+
+def _responses(fwd: Any, scenario: Scenario, face: float, angles: Sequence[float],
+               quads: list[tuple]) -> list[np.ndarray]:
+    """Transfer resistances of ``quads`` at each cutterhead angle (one solve where offered)."""
+    multi = getattr(fwd, "response_angles", None)
+    if multi is not None and len(angles) > 1:
+        out = [np.asarray(r, float) for r in multi(scenario, face, angles, quads)]
+    else:
+        out = [np.asarray(fwd.response(scenario, face, ang, quads), float) for ang in angles]
+    for r in out:
         if r.shape != (len(quads),):
             raise RuntimeError(f"forward model {type(fwd).__name__} returned {r.shape} values "
                                f"for {len(quads)} readings")
-        v = r * current_a
-        e1 = rng.standard_normal(len(v))
-        e2 = rng.standard_normal(len(v))
-        vn = v * (1.0 + noise_rel * e1) + noise_abs_v * e2
-        std = np.sqrt((noise_rel * v) ** 2 + noise_abs_v ** 2)
-        cr = _contact_ohm(layout, scenario, face, ang)
-        t_adv = t0 + _dt.timedelta(minutes=advance_minutes * (adv - 1))
-        for i, (a, b, m, n) in enumerate(quads):
-            rows.append({
-                "advance": adv, "face_chainage_m": face, "a": a, "b": b or "", "m": m,
-                "n": n or "", "current_a": current_a, "voltage_v": float(vn[i]),
-                "time": (t_adv + _dt.timedelta(seconds=reading_seconds * i)).isoformat(),
-                "cutterhead_deg": ang, "stack_n": int(stack_n),
-                "voltage_std_v": float(std[i]), "contact_ohm_a": cr[a],
-                "contact_ohm_m": cr[m], "synthetic": 1,
-            })
-        _LOG.info("advance %d at %.2f m: %d readings", adv, face, len(quads))
-    return pd.DataFrame(rows, columns=list(COLUMNS))
+    return out
+
+
+def angle_range(start_deg: float, stop_deg: float, step_deg: float) -> np.ndarray:
+    """Cutterhead angles ``START:STOP:STEP``, degrees, STOP included when on the step grid.
+
+    Parameters
+    ----------
+    start_deg, stop_deg, step_deg : float
+        First angle, last angle and step, degrees (the step moves from START towards STOP).
+
+    Returns
+    -------
+    numpy.ndarray
+        The angles, degrees (not wrapped: 0:360:45 gives 0 and 360, the same position).
+
+    Raises
+    ------
+    ValueError
+        If a value is not finite or the step is 0 or points away from STOP.
+    """
+    vals = (float(start_deg), float(stop_deg), float(step_deg))
+    if not all(math.isfinite(v) for v in vals):
+        raise ValueError(f"angles {vals}: expected finite numbers of degrees")
+    start, stop, step = vals
+    if step == 0 or (stop - start) * step < 0:
+        raise ValueError(f"angles {start:g}:{stop:g}:{step:g}: STEP must move from START "
+                         "towards STOP")
+    n = int(np.floor((stop - start) / step + 1e-9)) + 1
+    return start + step * np.arange(n)
 
 
 def write_readings(df: pd.DataFrame, path: str | Path) -> Path:
@@ -185,4 +247,4 @@ def write_readings(df: pd.DataFrame, path: str | Path) -> Path:
     return target
 
 
-__all__ = ["COLUMNS", "ELECTRODE_RADIUS_M", "simulate_drive", "write_readings"]
+__all__ = ["COLUMNS", "ELECTRODE_RADIUS_M", "angle_range", "simulate_drive", "write_readings"]

@@ -74,3 +74,94 @@ def test_contact_potential_meets_the_interface_conditions(rho2, src_x):
     rec = np.array([4.0, -1.0, 2.0])
     assert float(contact_potential(rho1, rho1, c, src, rec)) == pytest.approx(
         rho1 / (4 * math.pi * np.linalg.norm(rec - src)), rel=1e-12)
+
+
+# ------------------------------------------------------------------ sphere, Legendre series
+SPHERE_C = np.array([10.0, 2.0, -1.0])
+SPHERE_A = 2.0
+SPHERE_SRC = np.array([0.0, 0.0, 0.0])
+
+
+def _points_outside(n: int, seed: int = 1) -> np.ndarray:
+    pts = np.random.default_rng(seed).uniform(-10.0, 20.0, (n, 3))
+    return pts[np.linalg.norm(pts - SPHERE_C, axis=1) > 1.01 * SPHERE_A]
+
+
+def test_sphere_series_perfect_conductor_is_kelvin_image():
+    """A floating, perfectly conducting sphere (rho2 -> 0): Kelvin's image, charge -q a/s at
+    a^2/s from the centre plus +q a/s at the centre (Jackson 1999, Classical Electrodynamics,
+    3rd ed., sec. 2.2-2.3, from memory). rho2 = 1e-9 rho1 agrees to 1e-8."""
+    from tbminv.forward.analytic import sphere_potential
+
+    rec = _points_outside(300)
+    v = sphere_potential(100.0, 1e-7, SPHERE_C, SPHERE_A, SPHERE_SRC, rec, current_a=2.0)
+    s = np.linalg.norm(SPHERE_SRC - SPHERE_C)
+    img = SPHERE_C + (SPHERE_SRC - SPHERE_C) / s * SPHERE_A ** 2 / s
+    kelvin = 100.0 * 2.0 / (4 * math.pi) * (
+        1 / np.linalg.norm(rec - SPHERE_SRC, axis=1)
+        - SPHERE_A / s / np.linalg.norm(rec - img, axis=1)
+        + SPHERE_A / s / np.linalg.norm(rec - SPHERE_C, axis=1))
+    np.testing.assert_allclose(v, kelvin, rtol=1e-8)
+
+
+def test_sphere_series_equal_resistivity_is_full_space():
+    """rho2 = rho1: no anomaly, V = rho I / (4 pi R) (Telford, Geldart & Sheriff 1990, ch. 8)."""
+    from tbminv.forward.analytic import full_space_potential, sphere_potential
+
+    rec = _points_outside(100)
+    np.testing.assert_allclose(
+        sphere_potential(30.0, 30.0, SPHERE_C, SPHERE_A, SPHERE_SRC, rec),
+        full_space_potential(30.0, SPHERE_SRC, rec), rtol=1e-12)
+
+
+@pytest.mark.parametrize("rho2", [3.0, 1000.0, math.inf])
+def test_sphere_series_boundary_conditions(rho2):
+    """The series satisfies the boundary-value problem it solves (Van Nostrand & Cook 1966,
+    USGS Professional Paper 499): the potential and the normal current density rho^-1 dV/dr are
+    continuous across the sphere's surface (one-sided second-order differences, h = 1e-4 a)."""
+    from tbminv.forward.analytic import sphere_potential
+
+    rho1 = 100.0
+    dirs = np.random.default_rng(4).normal(size=(40, 3))
+    dirs /= np.linalg.norm(dirs, axis=1)[:, None]
+    h = 1e-4 * SPHERE_A
+
+    def v(rr):
+        return sphere_potential(rho1, rho2, SPHERE_C, SPHERE_A, SPHERE_SRC, SPHERE_C + rr * dirs)
+
+    v_in, v_out = v(SPHERE_A - 1e-12), v(SPHERE_A + 1e-12)
+    np.testing.assert_allclose(v_in, v_out, rtol=1e-9)
+    j_out = (-3 * v_out + 4 * v(SPHERE_A + h) - v(SPHERE_A + 2 * h)) / (2 * h) / rho1
+    scale = np.abs(j_out).max()
+    if math.isinf(rho2):  # insulating sphere: no current crosses it
+        assert np.max(np.abs(j_out)) < 1e-6 * np.max(np.abs(v_out)) / SPHERE_A / rho1
+    else:
+        j_in = (3 * v_in - 4 * v(SPHERE_A - h) + v(SPHERE_A - 2 * h)) / (2 * h) / rho2
+        np.testing.assert_allclose(j_in, j_out, rtol=1e-5, atol=1e-5 * scale)
+
+
+def test_sphere_series_far_sphere_is_a_dipole():
+    """A small sphere far from source and receiver responds as the dipole induced by a uniform
+    field: anomaly = rho1 I/(4 pi) (rho2 - rho1)/(rho1 + 2 rho2) a^3 cos(gamma) / (s^2 r^2)
+    (Telford, Geldart & Sheriff 1990, sec. 8.3, sphere in a uniform field, from memory). With
+    a / s = a / r = 0.01 the two agree to 1e-3."""
+    from tbminv.forward.analytic import full_space_potential, sphere_potential
+
+    a, c = 0.1, np.array([0.0, 0.0, 0.0])
+    src = np.array([10.0, 0.0, 0.0])
+    rec = np.array([[0.0, 10.0, 0.0], [-10.0, 0.1, 0.0], [6.0, 8.0, 0.0]])
+    for rho1, rho2 in ((100.0, 1.0), (100.0, 1e4)):
+        anomaly = (sphere_potential(rho1, rho2, c, a, src, rec)
+                   - full_space_potential(rho1, src, rec))
+        cosg = rec @ src / (np.linalg.norm(rec, axis=1) * 10.0)
+        dip = (rho1 / (4 * math.pi) * (rho2 - rho1) / (rho1 + 2 * rho2) * a ** 3 * cosg
+               / (100.0 * np.linalg.norm(rec, axis=1) ** 2))
+        keep = np.abs(cosg) > 0.05
+        np.testing.assert_allclose(anomaly[keep], dip[keep], rtol=1e-3)
+
+
+def test_sphere_series_source_inside_is_refused():
+    from tbminv.forward.analytic import sphere_potential
+
+    with pytest.raises(ValueError, match="not outside the sphere"):
+        sphere_potential(1.0, 2.0, SPHERE_C, SPHERE_A, SPHERE_C + 0.5, SPHERE_SRC[None])

@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import math
+
 import numpy as np
 import pandas as pd
 import pytest
@@ -140,3 +142,52 @@ def test_3d_model_matches_closed_form():
     ref = simulate_drive(lay, sc, [100.0], model=PointModel(lay), current_a=2.0)
     np.testing.assert_allclose(df.voltage_v, ref.voltage_v, rtol=0.005)
     assert np.all(df.voltage_v != 0)
+
+
+def test_cutterhead_angles_every_reading_at_every_angle():
+    """``cutterhead_angles_deg``: each advance holds the whole protocol (with reciprocals) once
+    per angle, each row logging its angle; the voltages are the point-source superposition
+    (Telford, Geldart & Sheriff 1990, sec. 8.2) at the turned positions (T2 turns, S1 not)."""
+    from tbminv.studies.simulate import angle_range
+
+    lay = _layout()
+    angles = angle_range(0.0, 315.0, 45.0)
+    assert angles.tolist() == [0.0, 45.0, 90.0, 135.0, 180.0, 225.0, 270.0, 315.0]
+    df = simulate_drive(lay, Scenario.homogeneous(50.0), [100.0, 101.5], model=PointModel(lay),
+                        cutterhead_angles_deg=angles)
+    n_proto = 4   # two quadrupoles and their reciprocals
+    assert len(df) == 2 * len(angles) * n_proto
+    for adv in (1, 2):
+        part = df[df.advance == adv]
+        assert part.groupby("cutterhead_deg").size().to_dict() == {a: n_proto for a in angles}
+        assert pd.to_datetime(part.time).is_monotonic_increasing
+    for ang in angles:
+        one = simulate_drive(lay, Scenario.homogeneous(50.0), [100.0], model=PointModel(lay),
+                             cutterhead_deg=ang)
+        got = df[(df.advance == 1) & (df.cutterhead_deg == ang)]
+        np.testing.assert_allclose(got.voltage_v.to_numpy(), one.voltage_v.to_numpy(),
+                                   rtol=1e-12)
+    # the T1-S1 reading (T1 at 0.5 m radius) changes as the head turns
+    t1s1 = df[(df.advance == 1) & (df.a == "T1") & (df.b == "S1")].voltage_v.to_numpy()
+    assert np.ptp(t1s1) > 0.01 * np.abs(t1s1).max()
+
+
+def test_cutterhead_angles_one_axisym_solve_per_advance():
+    """The axisymmetric model by name sums one solve per advance at every angle; the readings
+    match the full-space closed form at each angle within 1 % (Telford, Geldart & Sheriff
+    1990, sec. 8.2)."""
+    lay = _layout()
+    sc = Scenario.homogeneous(50.0)
+    angles = [0.0, 120.0, 240.0]
+    axi = simulate_drive(lay, sc, [100.0], cutterhead_angles_deg=angles)
+    ref = simulate_drive(lay, sc, [100.0], model=PointModel(lay), cutterhead_angles_deg=angles)
+    np.testing.assert_allclose(axi.voltage_v, ref.voltage_v, rtol=0.01)
+    assert axi.cutterhead_deg.tolist() == ref.cutterhead_deg.tolist()
+
+
+@pytest.mark.parametrize("bad", [(0.0, 90.0, -10.0), (0.0, 90.0, 0.0), (0.0, math.nan, 1.0)])
+def test_angle_range_refuses_a_step_that_never_arrives(bad):
+    from tbminv.studies.simulate import angle_range
+
+    with pytest.raises(ValueError):
+        angle_range(*bad)

@@ -193,6 +193,41 @@ class AxisymLayoutSolver:
         return self.transfer(sol.potentials(th)), jac
 
 
+    def responses(self, rho_ground: np.ndarray, angles_deg: Sequence[float]) -> np.ndarray:
+        """Transfer resistances at several cutterhead angles from one solve, ohm.
+
+        The harmonic fields do not depend on the azimuths; each angle only re-sums them.
+
+        Returns
+        -------
+        numpy.ndarray
+            (n_angles, n_meas), ohm.
+        """
+        sol = self.forward.solve(rho_ground)
+        return np.array([self.transfer(sol.potentials(self._thetas(float(a))))
+                         for a in angles_deg]).reshape(len(angles_deg), len(self.terms))
+
+    def jacobians(self, rho_ground: np.ndarray, angles_deg: Sequence[float]
+                  ) -> tuple[np.ndarray, np.ndarray]:
+        """:meth:`jacobian` at several cutterhead angles from one solve per harmonic.
+
+        Returns
+        -------
+        (numpy.ndarray, numpy.ndarray)
+            R (n_angles, n_meas) in ohm and dR/d ln(rho) (n_angles, n_meas, n_ground_cells)
+            in ohm.
+        """
+        ths = [self._thetas(float(a)) for a in angles_deg]
+        jp, sol = self.forward.jacobian_sets(rho_ground, self.pairs, ths)
+        jac = np.zeros((len(ths), len(self.terms), jp.shape[2]))
+        for i, t in enumerate(self.terms):
+            for sg, s_, k in t:
+                jac[:, i] += sg * jp[:, self._pair_index[(s_, k)]]
+        r = np.array([self.transfer(sol.potentials(th)) for th in ths]).reshape(
+            len(ths), len(self.terms))
+        return r, jac
+
+
 class AxisymModel:
     """Forward model ``axisym`` of the registry (:mod:`tbminv.forward.registry`).
 
@@ -226,6 +261,20 @@ class AxisymModel:
         """Transfer resistances of ``measurements`` (default the protocol), ohm."""
         model = self.model_for(face_chainage_m, cutterhead_deg, measurements)
         return model.response_scenario(scenario, face_chainage_m, cutterhead_deg)
+
+    def response_angles(self, scenario: Scenario, face_chainage_m: float,
+                        angles_deg: Sequence[float], measurements: Quadrupoles | None = None
+                        ) -> np.ndarray:
+        """Transfer resistances at several cutterhead angles (one solve), ohm.
+
+        Returns
+        -------
+        numpy.ndarray
+            (n_angles, n_measurements), ohm.
+        """
+        angles = [float(a) for a in angles_deg]
+        model = self.model_for(face_chainage_m, angles[0], measurements)
+        return model.responses(model.ground_resistivity(scenario, face_chainage_m), angles)
 
 
 __all__ = ["AxisymLayoutSolver", "AxisymModel"]

@@ -507,13 +507,19 @@ class AxisymSolver:
     def _jacobian_range(self, ms: Sequence[int], sig: np.ndarray, rho_src: np.ndarray,
                         pj: Sequence[tuple[int, int]], th_s: np.ndarray, th_k: np.ndarray
                         ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-        """Secondary receiver values, d V / d sigma (ground cells) and source terms of ``ms``."""
+        """Secondary receiver values, d V / d sigma (ground cells) and source terms of ``ms``.
+
+        ``th_s`` (n_sets, n_src) and ``th_k`` (n_sets, n_rec) are azimuth sets, radians: the
+        harmonic fields are solved once and summed for every set (the last two outputs carry
+        a leading set axis).
+        """
         rec_nodes = np.array([self._receiver_node(e) for e in self.receivers], dtype=int)
         sec = np.zeros((self.m_max + 1, len(self.receivers), len(self.sources)))
-        cs = np.zeros(len(pj))  # source-resistivity term
+        n_sets = th_s.shape[0]
+        cs = np.zeros((n_sets, len(pj)))  # source-resistivity term
         gc = self.ground_cells
         cn = self.cell_nodes[gc]
-        dvds = np.zeros((len(pj), gc.size))  # d V / d sigma_e on ground cells
+        dvds = np.zeros((n_sets, len(pj), gc.size))  # d V / d sigma_e on ground cells
         by_rec: dict[int, list[int]] = {}
         for q, (_js, jk) in enumerate(pj):
             by_rec.setdefault(jk, []).append(q)
@@ -548,10 +554,13 @@ class AxisymSolver:
                 bil = np.einsum("ea,eas->es", vl, ku[:, :, idx])  # (n_g, n_q)
                 for c, q in enumerate(qs):
                     js = pj[q][0]
-                    wgt = cw * math.cos(m * (th_k[jk] - th_s[js]))
-                    dvds[q] -= wgt * bil[:, c]
+                    wgt = cw * np.cos(m * (th_k[:, jk] - th_s[:, js]))   # (n_sets,)
+                    if n_sets == 1:
+                        dvds[0, q] -= wgt[0] * bil[:, c]
+                    else:
+                        dvds[:, q] -= wgt[:, None] * bil[None, :, c]
                     if self.sources[js].is_point:
-                        cs[q] += wgt * float(v @ h["a_up"][:, col_s[js]]) * rho_src[js]
+                        cs[:, q] += wgt * float(v @ h["a_up"][:, col_s[js]]) * rho_src[js]
         return sec, dvds, cs
 
     def _map_harmonics(self, fn_name: str, *args: Any) -> list[Any]:
@@ -638,10 +647,39 @@ class AxisymSolver:
             The share of the cells around a current electrode is exact only summed over
             them (they must share one resistivity).
         """
+        jac, sol = self.jacobian_sets(rho_ground, pairs, [theta_deg])
+        return jac[0], sol
+
+    def jacobian_sets(self, rho_ground: np.ndarray, pairs: Sequence[tuple[str, str]],
+                      theta_sets: Sequence[Mapping[str, float] | None]
+                      ) -> tuple[np.ndarray, AxisymSolution]:
+        """:meth:`jacobian` for several azimuth sets from one solve per harmonic.
+
+        The harmonic source and adjoint fields do not depend on the azimuths; only their sum
+        over harmonics (the ``cos m (theta_k - theta_s)`` weights) does. A turned cutterhead
+        is one set (its electrodes' azimuths overridden).
+
+        Parameters
+        ----------
+        rho_ground : numpy.ndarray
+            Ground-cell resistivities, ohm-m.
+        pairs : sequence of (source label, receiver label)
+        theta_sets : sequence of mapping or None
+            Azimuth overrides per set, degrees (None: the electrodes' own).
+
+        Returns
+        -------
+        (numpy.ndarray, AxisymSolution)
+            ``d V / d ln(rho_e)`` (n_sets, n_pairs, n_ground_cells) in V/A, and the forward
+            solution (``potentials(theta)`` gives any set's potentials).
+        """
         sig = self.cell_conductivity(rho_ground)
         rho_src = self._source_rho(sig)
-        th_s = self._angles(self.sources, theta_deg)
-        th_k = self._angles(self.receivers, theta_deg)
+        sets = list(theta_sets) or [None]
+        th_s = np.array([self._angles(self.sources, t) for t in sets]).reshape(
+            len(sets), len(self.sources))
+        th_k = np.array([self._angles(self.receivers, t) for t in sets]).reshape(
+            len(sets), len(self.receivers))
         pj = [(self.source_index[a], self.receiver_index[b]) for a, b in pairs]
         parts = self._map_harmonics("_jacobian_range", sig, rho_src, pj, th_s, th_k)
         sec = sum(p[0] for p in parts)
@@ -651,19 +689,21 @@ class AxisymSolver:
         pos = np.full(self.mesh.n_cells, -1)
         pos[gc] = np.arange(gc.size)
         sol = AxisymSolution(self, sec, rho_src, np.asarray(rho_ground, float))
-        prim = self._primary_at_receivers(rho_src, theta_deg)
-        for q, (js, jk) in enumerate(pj):
-            es = self.sources[js]
-            if not es.is_point:
-                continue
-            # the primary read at the receiver: u_p1 / sigma_s -> - u_p1 / sigma_s^2
-            if self.receivers[jk].is_point:
-                cs[q] -= prim[jk, js] * rho_src[js]
-            cells = pos[self._node_cells[self.node_of[es.label]]]
-            if np.any(cells < 0):
-                raise ValueError(f"electrode {es.label!r} touches a cell outside the ground")
-            dvds[q, cells] += cs[q] / len(cells)
-        jac = -dvds * sig[None, gc]
+        for i_set, theta in enumerate(sets):
+            prim = self._primary_at_receivers(rho_src, theta)
+            for q, (js, jk) in enumerate(pj):
+                es = self.sources[js]
+                if not es.is_point:
+                    continue
+                # the primary read at the receiver: u_p1 / sigma_s -> - u_p1 / sigma_s^2
+                if self.receivers[jk].is_point:
+                    cs[i_set, q] -= prim[jk, js] * rho_src[js]
+                cells = pos[self._node_cells[self.node_of[es.label]]]
+                if np.any(cells < 0):
+                    raise ValueError(f"electrode {es.label!r} touches a cell outside the "
+                                     "ground")
+                dvds[i_set, q, cells] += cs[i_set, q] / len(cells)
+        jac = -dvds * sig[None, None, gc]
         return jac, sol
 
 

@@ -244,7 +244,7 @@ def _graded(start: float, first: float, growth: float, stop: float) -> list[floa
 
 
 def _build_plc(g: TunnelGeometry, points: dict[str, np.ndarray], planes: tuple[float, ...],
-               s: MeshSettings, box: float) -> _PLC:
+               s: MeshSettings, box: float, refine: np.ndarray | None = None) -> _PLC:
     plc = _PLC()
     R, n = g.radius_m, s.n_segments
     ztop = R + g.cover_m if math.isfinite(g.cover_m) else box
@@ -344,6 +344,13 @@ def _build_plc(g: TunnelGeometry, points: dict[str, np.ndarray], planes: tuple[f
                     if _near_facet(q, g, st, xs, R, n, box, ztop, 0.3 * h):
                         continue
                     plc.node(q)
+    if refine is not None:   # refinement nodes of bodies (off facets and out of the cylinder)
+        for q in np.asarray(refine, float).reshape(-1, 3):
+            if _near_facet(q, g, st, xs, R, n, box, ztop, 0.3 * h):
+                continue
+            if st and st[0] <= q[0] <= st[-1] and math.hypot(q[1], q[2]) < R + 0.3 * h:
+                continue
+            plc.node(q)
     return plc
 
 
@@ -490,7 +497,8 @@ def electrode_points(layout: Any, face_chainage_m: float | None = None,
 
 def build_mesh(geometry: TunnelGeometry, points: dict[str, np.ndarray | None],
                settings: MeshSettings | None = None, planes_m: tuple[float, ...] = (),
-               steel_point: np.ndarray | None = None, use_cache: bool = True) -> TunnelMesh:
+               steel_point: np.ndarray | None = None, use_cache: bool = True,
+               refine_points_m: np.ndarray | None = None) -> TunnelMesh:
     """Mesh a machine/tunnel geometry with the given electrode nodes (cached).
 
     Parameters
@@ -507,12 +515,17 @@ def build_mesh(geometry: TunnelGeometry, points: dict[str, np.ndarray | None],
         A node to place inside the steel (current into the whole machine).
     use_cache : bool
         Read/write the mesh cache.
+    refine_points_m : ndarray (n, 3), optional
+        More mesh nodes (machine frame, m), e.g. on and in a body of the ground
+        (:func:`body_refinement_points`); those near a facet or inside the cylinder are skipped.
 
     Returns
     -------
     TunnelMesh
     """
     s = settings or MeshSettings()
+    refine = (None if refine_points_m is None or len(refine_points_m) == 0
+              else np.round(np.asarray(refine_points_m, float).reshape(-1, 3), 6))
     pts = {k: np.round(np.asarray(v, float), 9) for k, v in points.items() if v is not None}
     if steel_point is not None:
         pts["__steel__"] = np.round(np.asarray(steel_point, float), 9)
@@ -536,9 +549,12 @@ def build_mesh(geometry: TunnelGeometry, points: dict[str, np.ndarray | None],
             _LOG.warning("plane x = %.3f m moved to %.3f m: an electrode sits on it", p, q)
         moved.append(round(q, 9))
     planes = tuple(sorted(set(moved)))
-    key = cache_key({"format": MESH_FORMAT, "geometry": asdict(geometry),
-                     "settings": asdict(s), "points": {k: v for k, v in sorted(pts.items())},
-                     "planes": planes, "box": box})
+    key_items = {"format": MESH_FORMAT, "geometry": asdict(geometry),
+                 "settings": asdict(s), "points": {k: v for k, v in sorted(pts.items())},
+                 "planes": planes, "box": box}
+    if refine is not None:   # absent without bodies: earlier cache entries stay valid
+        key_items["refine"] = refine.tolist()
+    key = cache_key(key_items)
     folder = cache_dir("mesh3d")
     bms, side = folder / f"{key}.bms", folder / f"{key}.json"
     mesh = None
@@ -552,7 +568,7 @@ def build_mesh(geometry: TunnelGeometry, points: dict[str, np.ndarray | None],
             _LOG.warning("mesh cache entry %s unreadable (%s); rebuilding", bms, exc)
             mesh = None
     if mesh is None:
-        plc = _build_plc(geometry, pts, planes, s, box)
+        plc = _build_plc(geometry, pts, planes, s, box, refine)
         mesh = _run_tetgen(plc, s)
         xyz = np.asarray(mesh.positions())
         nodes = {}
@@ -577,17 +593,62 @@ def build_mesh(geometry: TunnelGeometry, points: dict[str, np.ndarray | None],
 
 def layout_mesh(layout: Any, face_chainage_m: float | None = None, cutterhead_deg: float = 0.0,
                 settings: MeshSettings | None = None, planes_m: tuple[float, ...] = (),
-                use_cache: bool = True) -> TunnelMesh:
+                use_cache: bool = True, refine_points_m: np.ndarray | None = None
+                ) -> TunnelMesh:
     """Mesh of a :class:`tbminv.layout.Layout` at a face chainage and cutterhead angle.
 
     ``face_chainage_m`` is needed when the layout has electrodes fixed in the ground (wall,
-    ground-fixed remote). ``planes_m`` are contact planes square to the axis, machine frame.
+    ground-fixed remote). ``planes_m`` are contact planes square to the axis, machine frame;
+    ``refine_points_m`` more nodes (machine frame, see :func:`build_mesh`).
     """
     s = settings or MeshSettings()
     points, steel = electrode_points(layout, face_chainage_m, cutterhead_deg, s.clearance_m,
                                      s.n_segments)
-    return build_mesh(TunnelGeometry.from_layout(layout), points, s, planes_m, steel, use_cache)
+    return build_mesh(TunnelGeometry.from_layout(layout), points, s, planes_m, steel, use_cache,
+                      refine_points_m)
+
+
+def body_refinement_points(centre_m: np.ndarray, radius_m: float, size_m: float
+                           ) -> np.ndarray:
+    """Mesh nodes that resolve a sphere: shells at ``radius -+ 0.15 size`` and a lattice inside.
+
+    Cells are filled by their centres (:func:`tbminv.forward.fem3d.model.cell_resistivity`), so
+    the body's surface is resolved to about ``size_m``.
+
+    Parameters
+    ----------
+    centre_m : array (3,)
+        Centre, m (machine frame).
+    radius_m : float
+        Radius, m.
+    size_m : float
+        Node spacing, m.
+
+    Returns
+    -------
+    ndarray (n, 3)
+        Node positions, m.
+    """
+    c = np.asarray(centre_m, float)
+    h = float(size_m)
+    out = []
+    for rr in (radius_m - 0.15 * h, radius_m + 0.15 * h):
+        if rr <= 0:
+            continue
+        k = max(12, int(math.ceil(4.0 * math.pi * rr * rr / (h * h))))
+        i = np.arange(k) + 0.5   # Fibonacci sphere: near-uniform points
+        phi = np.arccos(1.0 - 2.0 * i / k)
+        th = math.pi * (1.0 + 5.0 ** 0.5) * i
+        out.append(c + rr * np.column_stack([np.cos(phi), np.sin(phi) * np.cos(th),
+                                             np.sin(phi) * np.sin(th)]))
+    g = np.arange(-radius_m + h, radius_m - h + 1e-9, h)
+    if g.size:
+        gx, gy, gz = np.meshgrid(g, g, g, indexing="ij")
+        pts = np.column_stack([gx.ravel(), gy.ravel(), gz.ravel()])
+        out.append(c + pts[np.linalg.norm(pts, axis=1) < radius_m - h])
+    return np.vstack(out) if out else np.zeros((0, 3))
 
 
 __all__ = ["REGIONS", "MeshError", "MeshSettings", "TunnelGeometry", "TunnelMesh",
-           "build_mesh", "electrode_points", "layout_mesh", "polygon_radius"]
+           "body_refinement_points", "build_mesh", "electrode_points", "layout_mesh",
+           "polygon_radius"]

@@ -51,7 +51,12 @@ from typing import Any
 import numpy as np
 
 from tbminv.forward.copies import node_layout, node_quadrupole, roles
-from tbminv.forward.fem3d.mesh import MeshSettings, TunnelMesh, layout_mesh
+from tbminv.forward.fem3d.mesh import (
+    MeshSettings,
+    TunnelMesh,
+    body_refinement_points,
+    layout_mesh,
+)
 from tbminv.forward.quadrupoles import Quadrupoles, quadrupole_labels
 from tbminv.gimli import configure_operator, ert, ert_data_container, pg
 from tbminv.ground import Scenario
@@ -213,8 +218,16 @@ class Forward3D:
             box = self.settings.mesh.box_m
             planes = tuple(p for p in contact_planes(self.layout, scenario, face_chainage_m)
                            if abs(p) < box)
+        refine = None
+        if scenario is not None and scenario.spheres:
+            # nodes on and in every sphere, spaced a quarter of its radius, at most the
+            # spacing ahead of the face (cells are filled by their centres)
+            face_size = self.settings.mesh.face_size_m
+            refine = np.vstack([body_refinement_points(
+                (sph.chainage_m - face_chainage_m, sph.y_m, sph.z_m), sph.radius_m,
+                min(0.25 * sph.radius_m, face_size)) for sph in scenario.spheres])
         return layout_mesh(self.layout, face_chainage_m, cutterhead_deg, self.settings.mesh,
-                           planes, use_cache=self.settings.cache_meshes)
+                           planes, use_cache=self.settings.cache_meshes, refine_points_m=refine)
 
     def run(self, scenario: Any, face_chainage_m: float, cutterhead_deg: float = 0.0,
             measurements: Quadrupoles | None = None) -> ForwardResult:
