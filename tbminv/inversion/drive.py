@@ -251,6 +251,10 @@ class DriveInverter:
         spec = SurfaceTableSpec()
         positions = {(round(d.face_chainage_m, 3), round(d.cutterhead_deg % 360.0, 3))
                      for d in data}
+        for d in data:   # every cutterhead angle a turning reading was modelled at
+            if d.rows is not None:
+                positions |= {(round(d.face_chainage_m, 3), round(float(a) % 360.0, 3))
+                              for a in np.unique(d.rows.angle_deg[d.rows.turns])}
         fixed = any(e.fixed_in_ground for e in self.layout.electrodes)
         blocks = len({math.floor(d.face_chainage_m / spec.block_m) for d in data}) if fixed \
             else 1
@@ -263,7 +267,9 @@ class DriveInverter:
         """The advance's readings as the same ground would give them without the surface.
 
         Unchanged for a deep tunnel (infinite cover) or with ``surface_correction`` off; else
-        divided by :func:`tbminv.forward.ratio.surface_factors` at the reference resistivity.
+        divided by :func:`tbminv.forward.ratio.surface_factors` at the reference resistivity:
+        the stacked values at the advance's median angle, each (quadrupole, angle) row of a
+        turning quadrupole at its own angle.
         """
         if not (self.settings.surface_correction and needs_correction(self.layout)):
             return adv
@@ -271,8 +277,16 @@ class DriveInverter:
                             rho_ohmm=self.reference_resistivity(adv),
                             method=self.surface_method)
         extra = {}
-        if adv.rows is not None:   # the factor of the advance's median angle for every row
-            extra["rows"] = dataclasses.replace(adv.rows, r_ohm=adv.rows.r_ohm / f[adv.rows.quad])
+        if adv.rows is not None:   # every row at its own cutterhead angle
+            rows = adv.rows
+            f_rows = f[rows.quad]
+            for ang in np.unique(rows.angle_deg[rows.turns]):
+                at = rows.turns & (rows.angle_deg == ang)
+                f_a = surface_factors(self.layout, adv.face_chainage_m, float(ang),
+                                      rho_ohmm=self.reference_resistivity(adv),
+                                      method=self.surface_method)
+                f_rows[at] = f_a[rows.quad[at]]
+            extra["rows"] = dataclasses.replace(rows, r_ohm=rows.r_ohm / f_rows)
         return dataclasses.replace(adv, r_ohm=adv.r_ohm / f, **extra)
 
     def invert_advance(self, adv: AdvanceData, start: np.ndarray | None = None,
