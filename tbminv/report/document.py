@@ -239,7 +239,7 @@ def write_report(store_path: str | Path, out_dir: str | Path,
         return plot_key_figure(
             recent, last_adv, change_chainage_m=p1.change_chainage_m,
             detection_limit_m=limit.contact_reach_m if limit else None,
-            detection_label=(f"1:{limit.contact_contrast:g} contact seen within this distance"
+            detection_label=(f"1:{limit.contact_contrast:g} contact: detection limit at best"
                              if limit else ""), norm=norm, axes=axes)
 
     key = draw_key()
