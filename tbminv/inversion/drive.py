@@ -352,11 +352,13 @@ class DriveInverter:
             data = [self.contact_stacked(adv) for adv in data]
         data = with_error_floor(data, self.settings.model_error_floor)
         if self.settings.contact_fit:
+            t0 = time.perf_counter()
             try:
                 fitter = self.contact_fitter(self.rho_ref_ohmm or 100.0)
             except (OSError, RuntimeError, ValueError) as exc:
                 raise InversionError(f"contact fit cannot be set up: {exc}; set [invert] "
                                      "contact_fit = false to invert without it") from exc
+            self._clock("contact table", t0)
             r, e, _ = self._contact_data(data)
             usable = [int(fitter.usable_readings(r[k], e[k]).sum()) for k in range(len(data))]
             if max(usable) < 3:
