@@ -17,7 +17,8 @@ from tests.helpers import fixture_layout
 pytestmark = pytest.mark.slow
 
 
-def test_reach_shrinks_with_noise_and_responses_are_cached():
+def test_reach_shrinks_with_noise_and_responses_are_cached(tmp_path, monkeypatch):
+    monkeypatch.setenv("TBMINV_CACHE_DIR", str(tmp_path))   # a cache of this test's own
     layout = fixture_layout()
     quiet = detection_limit(layout, 0.0005)
     files = sorted(cache_dir("detection-limit").glob("*.npz"))
